@@ -1,0 +1,3 @@
+from querygap.cli import app
+
+app(prog_name="querygap")

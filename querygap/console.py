@@ -1,0 +1,112 @@
+"""Terminal output: rich tables for people, plain dicts for ``--json``. Only the CLI calls this."""
+
+from __future__ import annotations
+
+import json
+from dataclasses import asdict
+from typing import Any
+
+from rich.console import Console
+from rich.table import Table
+from rich.text import Text
+
+from querygap.logload import LoadResult
+from querygap.pageload import ContentResult
+from querygap.review import ReviewResult
+
+STATUS_ORDER = ("zero", "low", "ok")
+
+
+def pct(x: float) -> str:
+    return f"{100 * x:.1f}%"
+
+
+def emit_json(console: Console, payload: Any) -> None:
+    console.print_json(json.dumps(payload, default=str))
+
+
+def load_table(results: list[LoadResult]) -> Table:
+    table = Table(title="Logs loaded", title_justify="left")
+    for col in ("file", "rows read", "loaded", "rejected", "duplicates", "redacted"):
+        table.add_column(col, justify="left" if col == "file" else "right")
+    for r in results:
+        redacted = ", ".join(f"{n} {k}" for k, n in sorted(r.redacted.items()) if n) or "-"
+        if r.skipped:
+            table.add_row(Text(r.path), "-", "already loaded", "-", "-", "-")
+        else:
+            table.add_row(
+                Text(r.path),
+                f"{r.rows_read:,}",
+                f"{r.loaded:,}",
+                f"{r.rejected:,}",
+                f"{r.duplicates:,}",
+                redacted,
+            )
+    return table
+
+
+def load_payload(results: list[LoadResult]) -> list[dict[str, Any]]:
+    return [asdict(r) | {"reconciliation": r.reconciliation()} for r in results]
+
+
+def content_payload(result: ContentResult) -> dict[str, Any]:
+    return asdict(result) | {"summary": result.summary()}
+
+
+def review_table(result: ReviewResult) -> Table:
+    title = (
+        f"Review {result.review_id}: {result.searches:,} searches, "
+        f"{result.queries:,} unique queries"
+    )
+    table = Table(title=title, title_justify="left")
+    for col in ("status", "searches", "share of searches", "unique queries", "share of queries"):
+        table.add_column(col, justify="left" if col == "status" else "right")
+    for status in STATUS_ORDER:
+        t = result.totals.get(status, {"searches": 0, "queries": 0})
+        table.add_row(
+            status,
+            f"{t['searches']:,}",
+            pct(result.rate(status)),
+            f"{t['queries']:,}",
+            pct(result.rate(status, "queries")),
+        )
+    return table
+
+
+def engine_lines(result: ReviewResult) -> list[str]:
+    d = result.disagreements
+    if not d.get("engine_searches"):
+        return ["The log has no result counts, so the engine's own view is not compared."]
+    return [
+        f"The content answers {d['content_only_queries']:,} queries ({d['content_only_searches']:,} "
+        "searches) for which the engine showed no results: check the engine's index and analyzer.",
+        f"The engine showed results for {d['engine_only_queries']:,} queries "
+        f"({d['engine_only_searches']:,} searches) that no page answers well: check what it shows.",
+    ]
+
+
+def review_payload(result: ReviewResult) -> dict[str, Any]:
+    payload = asdict(result)
+    payload["rates"] = {
+        s: {"per_search": result.rate(s), "per_query": result.rate(s, "queries")}
+        for s in STATUS_ORDER
+    }
+    return payload
+
+
+def failing_table(rows: list[dict[str, Any]], limit: int = 10) -> Table:
+    table = Table(title=f"Most searched failing queries (top {limit})", title_justify="left")
+    for col in ("query", "searches", "status", "score", "coverage", "missing terms"):
+        table.add_column(
+            col, justify="right" if col in ("searches", "score", "coverage") else "left"
+        )
+    for row in rows[:limit]:
+        table.add_row(
+            Text(str(row["query"])),
+            f"{row['searches']:,}",
+            row["status"],
+            f"{row['best_score']:.2f}",
+            pct(row["coverage"]),
+            Text(str(row["unmatched_terms"])),
+        )
+    return table

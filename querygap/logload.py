@@ -1,0 +1,335 @@
+"""The load stage for query logs: file -> ``searches`` (+ ``rejects``, ``duplicates``).
+
+DuckDB reads the file (it streams; no Python list of rows). Python touches only the distinct query
+texts (to redact and normalize them) and the distinct session/user keys (to hash them): logs follow
+Zipf's law, so these are far fewer than the rows. The whole load is one transaction: a load that
+fails or is killed part-way leaves the workspace as it was.
+
+Reconciliation, printed by the command: rows read = loaded + rejected + duplicates.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import json
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import duckdb
+import pandas as pd
+
+from querygap.errors import InputError
+from querygap.logformats import LogLayout, sniff_log
+from querygap.redaction import RedactionRules, keyed_hash_series, new_secret, redact_series
+from querygap.textnorm import normalize_series
+from querygap.workspace import run, transaction
+
+_REJECT_WORDS = {
+    "INVALID ENCODING": "bytes that are not valid {encoding}; pass --encoding if the file uses another",
+    "MISSING COLUMNS": "fewer fields than the header has",
+    "TOO MANY COLUMNS": "more fields than the header has (an unquoted delimiter?)",
+    "UNQUOTED VALUE": "a quote that is not closed",
+    "LINE SIZE OVER MAXIMUM": "a line longer than the reader's limit",
+    "CAST ERROR": "a value that cannot be read",
+}
+
+
+@dataclass(frozen=True)
+class LoadOptions:
+    """How to read and store one log file (every field has a command-line option)."""
+
+    fmt: str | None = None
+    encoding: str | None = None
+    delimiter: str | None = None
+    columns: dict[str, str] = field(default_factory=dict)
+    time_zone: str = "UTC"
+    time_format: str = ""
+    redaction: RedactionRules = field(default_factory=RedactionRules)
+    max_query_chars: int = 500
+    future_slack_hours: int = 24
+
+
+@dataclass(frozen=True)
+class LoadResult:
+    """What one load did; ``rows_read == loaded + rejected + duplicates`` always."""
+
+    path: str
+    file_id: int
+    skipped: bool  # the same bytes were loaded before
+    rows_read: int
+    loaded: int
+    rejected: int
+    duplicates: int
+    redacted: dict[str, int]
+    columns: dict[str, str]
+
+    def reconciliation(self) -> str:
+        """The line the command prints for this file."""
+        if self.skipped:
+            return f"{self.path}: already loaded (same content as file {self.file_id}); nothing changed"
+        return (
+            f"{self.path}: {self.rows_read:,} rows read = {self.loaded:,} loaded + "
+            f"{self.rejected:,} rejected + {self.duplicates:,} already loaded from another file"
+        )
+
+
+def file_sha256(path: Path) -> str:
+    """Hex SHA-256 of the file's bytes, read in 1 MiB chunks."""
+    digest = hashlib.sha256()
+    with path.open("rb") as fh:
+        for chunk in iter(lambda: fh.read(1 << 20), b""):
+            digest.update(chunk)
+    return digest.hexdigest()
+
+
+def _quote_ident(name: str) -> str:
+    return '"' + name.replace('"', '""') + '"'
+
+
+def _sql_str(text: str) -> str:
+    return "'" + text.replace("'", "''") + "'"
+
+
+def _read_sql(layout: LogLayout) -> tuple[str, int, bool]:
+    """The SELECT that reads the file into stage_read; the first data record number; rejects?"""
+    path = _sql_str(str(layout.path))
+    comp = "'gzip'" if layout.compressed else "'none'"
+    if layout.format == "parquet":
+        return (f"SELECT * FROM read_parquet({path}, file_row_number = true)", 1, False)
+    if layout.format == "jsonl":
+        opts = (
+            "columns = {'j': 'VARCHAR'}, header = false, auto_detect = false, delim = '\\x1f', "
+            "quote = '', escape = '', new_line = '\\n'"
+        )
+        first = 1
+    else:
+        cols = ", ".join(f"{_sql_str(c)}: 'VARCHAR'" for c in layout.columns)
+        opts = (
+            f"columns = {{{cols}}}, header = true, auto_detect = false, "
+            f"delim = {_sql_str(layout.delimiter)}, quote = '\"', escape = '\"'"
+        )
+        first = 2
+    return (
+        f"SELECT * FROM read_csv({path}, {opts}, encoding = {_sql_str(layout.encoding)}, "
+        f"compression = {comp}, store_rejects = true, rejects_table = 'qg_reject_errors', "
+        "rejects_scan = 'qg_reject_scans', strict_mode = true)",
+        first,
+        True,
+    )
+
+
+def _raw_sql(layout: LogLayout) -> str:
+    """The SELECT that turns stage_read (+ stage_lines) into stage_raw's standard columns."""
+
+    def col(fld: str) -> str:
+        name = layout.mapping.get(fld)
+        if name is None:
+            return "NULL::VARCHAR"
+        if layout.format == "jsonl":
+            path = _sql_str("$." + json.dumps(name))
+            return f"CASE WHEN ok THEN json_extract_string(j, {path}) END"
+        return f"CAST({_quote_ident(name)} AS VARCHAR)"
+
+    fields = ", ".join(
+        f"{col(f)} AS {f}_raw" for f in ("query", "session", "user", "results", "clicks")
+    )
+    ts = col("timestamp")
+    if layout.format == "parquet":
+        return (
+            f"SELECT file_row_number + 1 AS line, {ts} AS ts_raw, {fields}, "
+            "NULL::VARCHAR AS parse_error FROM stage_read"
+        )
+    if layout.format == "jsonl":
+        inner = (
+            "SELECT l.line, r.j, coalesce(json_valid(r.j) AND json_type(r.j) = 'OBJECT', false) AS ok"
+            " FROM stage_read r JOIN stage_lines l ON l.k = r.rowid"
+        )
+        return (
+            f"SELECT line, {ts} AS ts_raw, {fields}, CASE WHEN NOT ok THEN "
+            "'the line is not a JSON object' END AS parse_error FROM (" + inner + ") "
+            "WHERE trim(j) <> ''"
+        )
+    return (
+        f"SELECT l.line, {ts} AS ts_raw, {fields}, NULL::VARCHAR AS parse_error "
+        "FROM stage_read r JOIN stage_lines l ON l.k = r.rowid"
+    )
+
+
+def workspace_secret(conn: duckdb.DuckDBPyConnection) -> bytes:
+    """The workspace's hashing secret, created on first use."""
+    row = conn.execute("SELECT secret FROM workspace_secret").fetchone()
+    if row:
+        return bytes(row[0])
+    secret = new_secret()
+    conn.execute("INSERT INTO workspace_secret VALUES (?)", [secret])
+    return secret
+
+
+def load_log(conn: duckdb.DuckDBPyConnection, path: Path, options: LoadOptions) -> LoadResult:
+    """Load one log file into the workspace (one transaction)."""
+    path = Path(path)
+    layout = sniff_log(
+        path,
+        fmt=options.fmt,
+        encoding=options.encoding,
+        delimiter=options.delimiter,
+        overrides=options.columns,
+    )
+    sha = file_sha256(path)
+    known = run(conn, "file_by_hash", {"sha256": sha}).fetchone()
+    if known:
+        return LoadResult(str(path), int(known[0]), True, 0, 0, 0, 0, {}, layout.mapping)
+    with transaction(conn):
+        return _load_staged(conn, path, layout, sha, options)
+
+
+def _load_staged(
+    conn: duckdb.DuckDBPyConnection, path: Path, layout: LogLayout, sha: str, options: LoadOptions
+) -> LoadResult:
+    file_id = int(run(conn, "next_file_id").fetchone()[0])  # type: ignore[index]
+    read_sql, first, has_rejects = _read_sql(layout)
+    for table in ("qg_reject_errors", "qg_reject_scans"):
+        conn.execute(f"DROP TABLE IF EXISTS {table}")
+    try:
+        conn.execute(f"CREATE OR REPLACE TEMP TABLE stage_read AS {read_sql}")
+    except duckdb.Error as exc:
+        first_line = str(exc).splitlines()[0]
+        if "gzip" in first_line.lower():
+            raise InputError(
+                f"{path}: the gzip data ends early or is damaged ({first_line})"
+            ) from None
+        raise InputError(f"{path}: cannot be read as {layout.format}: {first_line}") from None
+    n_read = int(conn.execute("SELECT count(*) FROM stage_read").fetchone()[0])  # type: ignore[index]
+    structural = pd.DataFrame(columns=["line", "field", "reason", "raw"])
+    if has_rejects:
+        structural = conn.execute(
+            "SELECT line, any_value(column_name) AS field, any_value(error_type) AS kind, "
+            "any_value(error_message) AS message, any_value(csv_line) AS raw "
+            "FROM qg_reject_errors GROUP BY line ORDER BY line"
+        ).df()
+        structural["reason"] = [
+            _REJECT_WORDS.get(k, m).format(encoding=layout.encoding)
+            for k, m in zip(structural["kind"], structural["message"], strict=True)
+        ]
+        if layout.format == "jsonl":
+            structural["field"] = "(line)"
+    conn.execute(
+        "CREATE OR REPLACE TEMP TABLE stage_bad_lines AS SELECT unnest(?::BIGINT[]) AS line",
+        [structural["line"].astype("int64").tolist()],
+    )
+    run(conn, "stage_line_numbers", {"first": first, "total": n_read + len(structural)})
+    conn.execute(f"CREATE OR REPLACE TEMP TABLE stage_raw AS {_raw_sql(layout)}")
+    blank_lines = n_read - int(conn.execute("SELECT count(*) FROM stage_raw").fetchone()[0])  # type: ignore[index]
+    names = layout.mapping
+    conn.execute(f"SET TimeZone = {_sql_str(options.time_zone)}")
+    try:
+        run(
+            conn,
+            "stage_typed",
+            {
+                "time_format": options.time_format,
+                "max_query_chars": options.max_query_chars,
+                "future_slack_hours": options.future_slack_hours,
+                "f_timestamp": names["timestamp"],
+                "f_query": names["query"],
+                "f_results": names.get("results", ""),
+                "f_clicks": names.get("clicks", ""),
+            },
+        )
+    finally:
+        conn.execute("SET TimeZone = 'UTC'")
+
+    texts = run(conn, "stage_query_texts").df()["query_raw"].astype(object)
+    redacted, counts = redact_series(texts, options.redaction)
+    shown = redacted.str.strip().str.replace(r"\s+", " ", regex=True)
+    conn.register(
+        "stage_query_map_df",
+        pd.DataFrame(
+            {
+                "query_raw": texts,
+                "query_text": shown,
+                "query": normalize_series(redacted),
+            }
+        ),
+    )
+    conn.execute("CREATE OR REPLACE TEMP TABLE stage_query_map AS SELECT * FROM stage_query_map_df")
+    conn.unregister("stage_query_map_df")
+    keys = run(conn, "stage_keys").df()["k"].astype(object)
+    conn.register(
+        "stage_key_map_df",
+        pd.DataFrame(
+            {
+                "k": keys,
+                "hashed": keyed_hash_series(keys, workspace_secret(conn)),
+            }
+        ),
+    )
+    conn.execute("CREATE OR REPLACE TEMP TABLE stage_key_map AS SELECT * FROM stage_key_map_df")
+    conn.unregister("stage_key_map_df")
+
+    run(conn, "stage_rows", {"file_id": file_id})
+    run(conn, "store_duplicates", {"file_id": file_id})
+    run(conn, "store_new_searches")
+    run(conn, "store_typed_rejects", {"file_id": file_id})
+    if len(structural):
+        raw, _ = redact_series(structural["raw"].astype(object).fillna(""), options.redaction)
+        conn.register(
+            "stage_struct_df",
+            pd.DataFrame(
+                {
+                    "file_id": file_id,
+                    "line": structural["line"].astype("int64"),
+                    "field": structural["field"],
+                    "reason": structural["reason"],
+                    "raw": raw.str.slice(0, 2000),
+                }
+            ),
+        )
+        conn.execute("INSERT INTO rejects SELECT * FROM stage_struct_df")
+        conn.unregister("stage_struct_df")
+    parsed, typed_rejects, dupes = run(conn, "load_counts", {"file_id": file_id}).fetchone()  # type: ignore[misc]
+    rejected = int(typed_rejects) + len(structural)
+    rows_read = n_read - blank_lines + len(structural)
+    loaded = int(parsed) - int(dupes)
+    for kind, items in counts.items():
+        if items:
+            conn.execute("INSERT INTO redactions VALUES (?, ?, ?)", [file_id, kind, int(items)])
+    run(
+        conn,
+        "insert_log_file",
+        {
+            "file_id": file_id,
+            "path": str(path),
+            "sha256": sha,
+            "format": layout.format,
+            "columns_used": json.dumps(layout.mapping),
+            "time_zone": options.time_zone,
+            "redacted": options.redaction.enabled,
+            "rows_read": rows_read,
+            "rows_loaded": loaded,
+            "rows_rejected": rejected,
+            "rows_duplicate": int(dupes),
+        },
+    )
+    for table in (
+        "stage_read",
+        "stage_lines",
+        "stage_bad_lines",
+        "stage_raw",
+        "stage_typed",
+        "stage_query_map",
+        "stage_key_map",
+        "stage_rows",
+    ):
+        conn.execute(f"DROP TABLE IF EXISTS {table}")
+    return LoadResult(
+        str(path),
+        file_id,
+        False,
+        rows_read,
+        loaded,
+        rejected,
+        int(dupes),
+        {k: int(v) for k, v in counts.items()},
+        layout.mapping,
+    )

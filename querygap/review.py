@@ -1,0 +1,184 @@
+"""A review: index the content, score the window's unique queries, flag them, export.
+
+Stages and their tables: index (terms, doc_rows, doc_terms) -> score (query_scores,
+query_top_pages, query_terms; only queries not yet scored against this index) -> flag
+(reviews, review_queries).
+"""
+
+from __future__ import annotations
+
+import time
+from collections.abc import Callable
+from dataclasses import dataclass, field
+from datetime import datetime
+from pathlib import Path
+
+import duckdb
+import pandas as pd
+
+from querygap.errors import StageOrderError
+from querygap.indexing import build_index, load_index
+from querygap.safe_csv import write_csv
+from querygap.scoring import score_queries, store_scores
+from querygap.settings import ReviewSettings, validate
+from querygap.windows import Window, week_of
+from querygap.workspace import frame, run, transaction
+
+FAILING_COLUMNS = [
+    "query",
+    "searches",
+    "status",
+    "best_score",
+    "coverage",
+    "unmatched_terms",
+    "top_page",
+    "example",
+    "unknown_terms",
+    "top_page_title",
+    "visitors",
+    "engine_empty_share",
+    "click_share",
+]
+
+
+@dataclass
+class ReviewResult:
+    """Figures of one review, for the terminal, ``--json`` and the report."""
+
+    review_id: str
+    start: datetime
+    end: datetime
+    index_id: str
+    index_reused: bool
+    scored_now: int
+    totals: dict[str, dict[str, int]]
+    disagreements: dict[str, int]
+    searches: int
+    queries: int
+    failing_csv: Path | None = None
+    timings: dict[str, float] = field(default_factory=dict)
+
+    def rate(self, status: str, per: str = "searches") -> float:
+        total = self.searches if per == "searches" else self.queries
+        return self.totals.get(status, {}).get(per, 0) / total if total else 0.0
+
+
+def latest_window(conn: duckdb.DuckDBPyConnection, tz: str = "UTC") -> Window:
+    """The ISO week of the newest search in the workspace."""
+    first, last, n = run(conn, "review_log_span").fetchone()  # type: ignore[misc]
+    if not n:
+        raise StageOrderError("no searches are loaded; run 'querygap add-log' first")
+    return week_of(last, tz)
+
+
+Progress = Callable[[str], None]
+
+
+def run_review(
+    conn: duckdb.DuckDBPyConnection,
+    window: Window,
+    settings: ReviewSettings,
+    out_dir: Path | None,
+    progress: Progress | None = None,
+) -> ReviewResult:
+    """Run the index, score and flag stages for ``window`` and write failing_queries.csv."""
+    validate(settings)
+    say = progress or (lambda _msg: None)
+    timings: dict[str, float] = {}
+    t0 = time.perf_counter()
+    say("index")
+    index_id, reused = build_index(conn, settings.index)
+    timings["index"] = time.perf_counter() - t0
+
+    t0 = time.perf_counter()
+    say("score")
+    params = {"start": window.start, "end": window.end, "index_id": index_id}
+    todo = frame(conn, "review_unscored_queries", params)["query"]
+    if len(todo):
+        index = load_index(conn)
+        tables = score_queries(todo, index)
+        with transaction(conn):
+            store_scores(conn, index_id, tables)
+    timings["score"] = time.perf_counter() - t0
+
+    t0 = time.perf_counter()
+    say("flag")
+    with transaction(conn):
+        run(conn, "review_clear", {"review_id": window.review_id})
+        run(
+            conn,
+            "review_record",
+            {**params, "review_id": window.review_id, "settings": settings.to_json()},
+        )
+        run(
+            conn,
+            "review_flag",
+            {
+                **params,
+                "review_id": window.review_id,
+                "min_score": settings.min_score,
+                "min_coverage": settings.min_coverage,
+            },
+        )
+    timings["flag"] = time.perf_counter() - t0
+    result = summarize(conn, window, index_id, reused, len(todo))
+    result.timings = timings
+    if out_dir is not None:
+        t0 = time.perf_counter()
+        result.failing_csv = export_failing(conn, window.review_id, index_id, out_dir)
+        timings["export"] = time.perf_counter() - t0
+    return result
+
+
+def summarize(
+    conn: duckdb.DuckDBPyConnection, window: Window, index_id: str, reused: bool, scored: int
+) -> ReviewResult:
+    totals_df = frame(conn, "review_totals", {"review_id": window.review_id})
+    totals = {
+        row.status: {
+            k: int(getattr(row, k))
+            for k in (
+                "searches",
+                "queries",
+                "engine_searches",
+                "engine_empty",
+                "click_searches",
+                "clicked",
+            )
+        }
+        for row in totals_df.itertuples(index=False)
+    }
+    dis = frame(conn, "review_disagreements", {"review_id": window.review_id}).iloc[0]
+    return ReviewResult(
+        window.review_id,
+        window.start,
+        window.end,
+        index_id,
+        reused,
+        scored,
+        totals,
+        {k: int(v) for k, v in dis.items()},
+        sum(t["searches"] for t in totals.values()),
+        sum(t["queries"] for t in totals.values()),
+    )
+
+
+def failing_queries(conn: duckdb.DuckDBPyConnection, review_id: str, index_id: str) -> pd.DataFrame:
+    """The failing queries of a review in the columns of failing_queries.csv."""
+    data = frame(conn, "review_failing", {"review_id": review_id, "index_id": index_id})
+    data["engine_empty_share"] = (
+        (data["engine_empty"] / data["engine_searches"]).where(data["engine_searches"] > 0).round(3)
+    )
+    data["click_share"] = (
+        (data["clicked"] / data["click_searches"]).where(data["click_searches"] > 0).round(3)
+    )
+    data["best_score"] = data["best_score"].round(4)
+    data["coverage"] = data["coverage"].round(4)
+    return data[FAILING_COLUMNS]
+
+
+def export_failing(
+    conn: duckdb.DuckDBPyConnection, review_id: str, index_id: str, out_dir: Path
+) -> Path:
+    out_dir.mkdir(parents=True, exist_ok=True)
+    return write_csv(failing_queries(conn, review_id, index_id), out_dir / "failing_queries.csv")

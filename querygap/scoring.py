@@ -1,0 +1,194 @@
+"""The score stage: unique normalized queries against the current index.
+
+For each query q (a unit vector over known terms, its norm including unknown terms, see
+:mod:`querygap.weighting`) and each page d: ``score(q, d) = q . d``, the cosine, in [0, 1].
+Per query we keep the best score, the top ``k`` pages, each distinct term with its df and whether
+the best page contains it, and
+
+    coverage = sum of idf(t) over distinct query terms t on the best page
+               / sum of idf(t) over all distinct query terms t,
+
+with unknown terms weighing ``unknown_term_idf`` (the idf of df = 1). A query whose terms all have
+idf 0 (every page has them) gets coverage 1 when its best page has them all.
+
+The product is computed in chunks of queries with sparse matrices; the top-k selection is a
+vectorised sort of each chunk's non-zero scores, never a Python loop over queries.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import duckdb
+import numpy as np
+import pandas as pd
+import scipy.sparse as sp
+
+from querygap.analyzer import analyze_series
+from querygap.indexing import Index
+from querygap.weighting import query_weights, unknown_term_idf
+
+TOP_K = 5
+
+
+@dataclass(frozen=True)
+class QueryTerms:
+    """The analyzed queries as sparse counts over known and unknown terms."""
+
+    known: sp.csr_matrix  # (n_queries, n_index_terms) counts
+    unknown: sp.csr_matrix  # (n_queries, n_unknown) counts
+    long: pd.DataFrame  # row, position, term, term_id (-1 when unknown)
+
+
+def query_terms(queries: pd.Series, index: Index) -> QueryTerms:
+    """Analyze queries with the index's analyzer and split their terms into known and unknown."""
+    occ = analyze_series(queries.reset_index(drop=True), index.settings.analyzer)
+    n = len(queries)
+    if occ.empty:
+        empty = sp.csr_matrix((n, len(index.terms)))
+        return QueryTerms(
+            empty,
+            sp.csr_matrix((n, 0)),
+            pd.DataFrame({"row": [], "position": [], "term": [], "term_id": [], "count": []}),
+        )
+    distinct = occ.groupby(["row", "term"], sort=False).size().reset_index(name="count")
+    distinct["position"] = distinct.groupby("row").cumcount()
+    distinct["term_id"] = index.terms.get_indexer(distinct["term"])
+    known = distinct[distinct["term_id"] >= 0]
+    unknown = distinct[distinct["term_id"] < 0]
+    ucodes, _ = pd.factorize(unknown["term"])
+    known_m = sp.csr_matrix(
+        (
+            known["count"].to_numpy(np.float64),
+            (known["row"].to_numpy(), known["term_id"].to_numpy()),
+        ),
+        shape=(n, len(index.terms)),
+    )
+    unknown_m = sp.csr_matrix(
+        (unknown["count"].to_numpy(np.float64), (unknown["row"].to_numpy(), ucodes)),
+        shape=(n, int(ucodes.max()) + 1 if len(ucodes) else 0),
+    )
+    known_m.sort_indices()
+    return QueryTerms(known_m, unknown_m, distinct)
+
+
+def top_k_rows(scores: sp.csr_matrix, k: int) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """The ``k`` largest entries of each row: (row, column, value), rows ascending, values falling.
+
+    Ties are broken by the lower column index, so the result is deterministic.
+    """
+    scores = scores.tocsr()
+    scores.eliminate_zeros()
+    rows = np.repeat(np.arange(scores.shape[0]), np.diff(scores.indptr))
+    order = np.lexsort((scores.indices, -scores.data, rows))
+    rows_sorted = rows[order]
+    starts = scores.indptr[:-1][rows_sorted]
+    rank = np.arange(order.size) - starts
+    keep = rank < k
+    picked = order[keep]
+    return rows_sorted[keep], scores.indices[picked], scores.data[picked]
+
+
+@dataclass(frozen=True)
+class ScoreTables:
+    """The three result tables, ready to store."""
+
+    scores: pd.DataFrame  # query, n_terms, n_known, best_score, coverage, best_doc
+    top_pages: pd.DataFrame  # query, rank, doc_id, score
+    terms: pd.DataFrame  # query, position, term, df, in_best
+
+
+def score_queries(
+    queries: pd.Series, index: Index, chunk: int = 20_000, k: int = TOP_K
+) -> ScoreTables:
+    """Score unique queries against ``index`` (pure computation; storing is the caller's job)."""
+    queries = pd.Series(queries, dtype=object).reset_index(drop=True)
+    n = len(queries)
+    qt = query_terms(queries, index)
+    weights = query_weights(qt.known, index.idf, qt.unknown, index.n_docs, index.settings.weighting)
+    pages_t = index.vectors.T.tocsr()
+    rows_out, cols_out, vals_out = [], [], []
+    for start in range(0, n, chunk):
+        block = weights[start : start + chunk] @ pages_t
+        r, c, v = top_k_rows(block, k)
+        rows_out.append(r + start)
+        cols_out.append(c)
+        vals_out.append(v)
+    top_r = np.concatenate(rows_out) if rows_out else np.empty(0, np.int64)
+    top_c = np.concatenate(cols_out) if cols_out else np.empty(0, np.int64)
+    top_v = np.concatenate(vals_out) if vals_out else np.empty(0)
+    first = np.r_[True, top_r[1:] != top_r[:-1]] if top_r.size else np.empty(0, bool)
+    best_doc_row = np.full(n, -1, dtype=np.int64)
+    best_score = np.zeros(n)
+    best_doc_row[top_r[first]] = top_c[first]
+    best_score[top_r[first]] = top_v[first]
+    rank = np.arange(top_r.size) - np.searchsorted(top_r, top_r, side="left")
+
+    long = qt.long
+    term_ids = long["term_id"].to_numpy(np.int64)
+    qrow = long["row"].to_numpy(np.int64)
+    in_best = np.zeros(len(long), dtype=bool)
+    has_best = (term_ids >= 0) & (best_doc_row[qrow] >= 0)
+    if has_best.any():
+        vec = index.vectors
+        doc_of_nnz = np.repeat(np.arange(vec.shape[0], dtype=np.int64), np.diff(vec.indptr))
+        keys = doc_of_nnz * vec.shape[1] + vec.indices.astype(np.int64)  # sorted (CSR order)
+        probe = best_doc_row[qrow[has_best]] * vec.shape[1] + term_ids[has_best]
+        pos = np.searchsorted(keys, probe)
+        pos = np.minimum(pos, keys.size - 1)
+        in_best[has_best] = keys[pos] == probe
+    unk_idf = unknown_term_idf(index.n_docs, index.settings.weighting)
+    idf = np.where(term_ids >= 0, index.idf[np.maximum(term_ids, 0)], unk_idf)
+    mass = np.bincount(qrow, weights=idf, minlength=n)
+    matched = np.bincount(qrow, weights=np.where(in_best, idf, 0.0), minlength=n)
+    n_terms = np.bincount(qrow, minlength=n)
+    n_known = np.bincount(qrow, weights=(term_ids >= 0).astype(float), minlength=n).astype(np.int64)
+    n_in_best = np.bincount(qrow, weights=in_best.astype(float), minlength=n)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        coverage = np.where(
+            mass > 0, matched / mass, np.where((n_terms > 0) & (n_in_best == n_terms), 1.0, 0.0)
+        )
+
+    doc_ids = index.doc_ids
+    scores = pd.DataFrame(
+        {
+            "query": queries,
+            "n_terms": n_terms.astype(np.int32),
+            "n_known": n_known.astype(np.int32),
+            "best_score": np.clip(best_score, 0.0, 1.0),
+            "coverage": np.clip(coverage, 0.0, 1.0),
+            "best_doc": np.where(best_doc_row >= 0, doc_ids[np.maximum(best_doc_row, 0)], None),
+        }
+    )
+    top_pages = pd.DataFrame(
+        {
+            "query": queries.to_numpy(object)[top_r],
+            "rank": (rank + 1).astype(np.int32),
+            "doc_id": doc_ids[top_c] if top_c.size else np.empty(0, object),
+            "score": np.clip(top_v, 0.0, 1.0),
+        }
+    )
+    terms = pd.DataFrame(
+        {
+            "query": queries.to_numpy(object)[qrow],
+            "position": long["position"].to_numpy(np.int32),
+            "term": long["term"].to_numpy(object),
+            "df": np.where(term_ids >= 0, index.df[np.maximum(term_ids, 0)], 0).astype(np.int32),
+            "in_best": in_best,
+        }
+    )
+    return ScoreTables(scores, top_pages, terms)
+
+
+def store_scores(conn: duckdb.DuckDBPyConnection, index_id: str, tables: ScoreTables) -> None:
+    """Append score tables for ``index_id`` (the caller scores only queries not yet stored)."""
+    for name, data in (
+        ("query_scores", tables.scores),
+        ("query_top_pages", tables.top_pages),
+        ("query_terms", tables.terms),
+    ):
+        conn.register("score_df", data)
+        conn.execute(
+            f"INSERT INTO {name} SELECT ?::VARCHAR AS index_id, * FROM score_df", [index_id]
+        )
+        conn.unregister("score_df")

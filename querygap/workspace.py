@@ -1,0 +1,140 @@
+"""The workspace: one DuckDB file holding every table of every stage.
+
+The schema is built from the numbered scripts in ``sql/schema/`` (``001_core.sql``, ...). Table
+``schema_version`` records which scripts ran, so a later release can migrate an existing workspace
+and an older release refuses a workspace made by a newer one.
+"""
+
+from __future__ import annotations
+
+import re
+from collections.abc import Iterator, Mapping
+from contextlib import contextmanager
+from pathlib import Path
+from typing import Any
+
+import duckdb
+import pandas as pd
+
+from querygap.errors import SchemaError, WorkspaceBusyError
+from querygap.sqlfiles import SQL_DIR, statement
+
+DEFAULT_WORKSPACE = Path("querygap.duckdb")
+SCHEMA_DIR = SQL_DIR / "schema"
+_SCRIPT = re.compile(r"^(\d{3})_[a-z0-9_]+\.sql$")
+
+
+def schema_scripts(schema_dir: Path = SCHEMA_DIR) -> list[tuple[int, Path]]:
+    """The numbered schema scripts, in order: ``[(version, path), ...]``."""
+    scripts = []
+    for path in sorted(schema_dir.glob("*.sql")):
+        match = _SCRIPT.match(path.name)
+        if not match:
+            raise SchemaError(f"{path}: schema scripts are named NNN_words.sql")
+        scripts.append((int(match.group(1)), path))
+    return scripts
+
+
+def latest_schema_version() -> int:
+    """The highest schema version this release knows."""
+    return max(version for version, _ in schema_scripts())
+
+
+def connect(
+    path: Path | str | None = DEFAULT_WORKSPACE, *, read_only: bool = False
+) -> duckdb.DuckDBPyConnection:
+    """Open (and create or migrate) a workspace; ``None`` or ``":memory:"`` gives an in-memory one."""
+    target = ":memory:" if path is None else str(path)
+    if target != ":memory:":
+        parent = Path(target).resolve().parent
+        if not parent.is_dir():
+            raise SchemaError(f"cannot create workspace {target}: folder {parent} does not exist")
+    try:
+        conn = duckdb.connect(target, read_only=read_only)
+    except duckdb.IOException as exc:
+        text = str(exc)
+        if "lock" in text.lower():
+            raise WorkspaceBusyError(
+                f"workspace {target} is in use by another process; wait for it to finish, "
+                "or pass --db with another file"
+            ) from None
+        if "read-only" in text.lower() or "permission" in text.lower():
+            raise SchemaError(f"cannot open workspace {target}: {text.splitlines()[0]}") from None
+        raise SchemaError(f"cannot open workspace {target}: {text.splitlines()[0]}") from None
+    except duckdb.Error as exc:
+        raise SchemaError(
+            f"{target} is not a querygap workspace: {str(exc).splitlines()[0]}"
+        ) from None
+    conn.execute("SET TimeZone = 'UTC'")
+    if not read_only:
+        migrate(conn, target)
+    return conn
+
+
+def current_version(conn: duckdb.DuckDBPyConnection) -> int:
+    """The schema version recorded in the workspace (0 for an empty file)."""
+    exists = conn.execute(
+        "SELECT count(*) FROM information_schema.tables WHERE table_name = 'schema_version'"
+    ).fetchone()
+    if not exists or exists[0] == 0:
+        return 0
+    row = conn.execute("SELECT coalesce(max(version), 0) FROM schema_version").fetchone()
+    return int(row[0]) if row else 0
+
+
+def migrate(conn: duckdb.DuckDBPyConnection, target: str = "workspace") -> int:
+    """Run the schema scripts the workspace has not seen yet; return the resulting version."""
+    have = current_version(conn)
+    latest = latest_schema_version()
+    if have > latest:
+        raise SchemaError(
+            f"{target} was made by a newer querygap (schema version {have}, this release knows "
+            f"up to {latest}); upgrade querygap or use another --db"
+        )
+    for version, path in schema_scripts():
+        if version <= have:
+            continue
+        conn.execute("BEGIN TRANSACTION")
+        try:
+            conn.execute(path.read_text(encoding="utf-8"))
+            conn.execute("INSERT INTO schema_version VALUES (?, ?, now())", [version, path.name])
+            conn.execute("COMMIT")
+        except Exception:
+            conn.execute("ROLLBACK")
+            raise
+    return max(have, latest)
+
+
+def run(
+    conn: duckdb.DuckDBPyConnection, name: str, params: Mapping[str, Any] | None = None
+) -> duckdb.DuckDBPyConnection:
+    """Execute the named statement from ``sql/`` with its ``$parameters`` bound from ``params``."""
+    stmt = statement(name)
+    given = dict(params or {})
+    missing = stmt.params - given.keys()
+    extra = given.keys() - stmt.params
+    if missing or extra:
+        raise SchemaError(
+            f"{stmt.origin}: statement '{name}' takes {sorted(stmt.params)}; "
+            f"missing {sorted(missing)}, unexpected {sorted(extra)}"
+        )
+    return conn.execute(stmt.sql, given) if given else conn.execute(stmt.sql)
+
+
+def frame(
+    conn: duckdb.DuckDBPyConnection, name: str, params: Mapping[str, Any] | None = None
+) -> pd.DataFrame:
+    """Run a named query and return its result as a DataFrame."""
+    return run(conn, name, params).df()
+
+
+@contextmanager
+def transaction(conn: duckdb.DuckDBPyConnection) -> Iterator[duckdb.DuckDBPyConnection]:
+    """One all-or-nothing unit of work: commit on success, roll back on any exception."""
+    conn.execute("BEGIN TRANSACTION")
+    try:
+        yield conn
+    except BaseException:
+        conn.execute("ROLLBACK")
+        raise
+    conn.execute("COMMIT")

@@ -1,0 +1,40 @@
+-- Index stage: documents -> terms, doc_rows, doc_terms (the unit page vectors).
+
+-- name: index_exists
+-- $index_id: fingerprint of the settings and the pages' hashes
+SELECT count(*) FROM indexes WHERE index_id = $index_id;
+
+-- name: index_make_current
+-- Mark one index as the current one. Writes indexes.
+-- $index_id: the index to use from now on
+UPDATE indexes SET current = (index_id = $index_id);
+
+-- name: index_retire_others
+-- Drop the vectors of every index but the current one (their reviews keep their own figures).
+DELETE FROM doc_terms WHERE index_id NOT IN (SELECT index_id FROM indexes WHERE current);
+DELETE FROM doc_rows WHERE index_id NOT IN (SELECT index_id FROM indexes WHERE current);
+DELETE FROM terms WHERE index_id NOT IN (SELECT index_id FROM indexes WHERE current);
+
+-- name: index_record
+-- $index_id: the new index
+-- $settings: JSON of analyzer, weighting and field weights
+-- $n_docs: pages indexed
+-- $n_terms: distinct terms
+INSERT INTO indexes VALUES ($index_id, $settings, $n_docs, $n_terms, now(), false);
+
+-- name: index_current
+-- The current index, if any.
+SELECT index_id, settings, n_docs, n_terms FROM indexes WHERE current;
+
+-- name: index_terms
+-- $index_id: the index
+SELECT term_id, term, df, idf FROM terms WHERE index_id = $index_id ORDER BY term_id;
+
+-- name: index_doc_rows
+-- $index_id: the index
+SELECT doc_row, doc_id FROM doc_rows WHERE index_id = $index_id ORDER BY doc_row;
+
+-- name: index_vectors
+-- The page vectors in row-major order (CSR order).
+-- $index_id: the index
+SELECT doc_row, term_id, weight FROM doc_terms WHERE index_id = $index_id ORDER BY doc_row, term_id;

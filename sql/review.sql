@@ -1,0 +1,103 @@
+-- Score and flag stages for one review window.
+
+-- name: review_log_span
+-- The first and last search instants in the workspace.
+SELECT min(searched_at), max(searched_at), count(*) FROM searches;
+
+-- name: review_unscored_queries
+-- Unique queries searched in the window that have no score against the index yet.
+-- $start: window start (inclusive)
+-- $end: window end (exclusive)
+-- $index_id: the current index
+SELECT DISTINCT s.query FROM searches s
+WHERE s.searched_at >= $start AND s.searched_at < $end
+  AND NOT EXISTS (SELECT 1 FROM query_scores q WHERE q.index_id = $index_id AND q.query = s.query)
+ORDER BY 1;
+
+-- name: review_clear
+-- Forget an earlier run of the same review (reruns replace, never add).
+-- $review_id: the review
+DELETE FROM review_queries WHERE review_id = $review_id;
+DELETE FROM reviews WHERE review_id = $review_id;
+
+-- name: review_record
+-- $review_id: the review (ISO week like 2026-W46, or from_to dates)
+-- $start: window start (inclusive)
+-- $end: window end (exclusive)
+-- $index_id: the index scored against
+-- $settings: JSON of the thresholds and options
+INSERT INTO reviews VALUES ($review_id, $start, $end, $index_id, $settings, now());
+
+-- name: review_flag
+-- Every unique query of the window with volume, content score and status. Reads searches,
+-- query_scores; writes review_queries. Status: zero when no query term is on any page (or the
+-- query has no terms); low when the best page's cosine is below $min_score or its coverage below
+-- $min_coverage; ok otherwise.
+-- $review_id: the review
+-- $start: window start (inclusive)
+-- $end: window end (exclusive)
+-- $index_id: the index scored against
+-- $min_score: lowest best-page cosine that is not low
+-- $min_coverage: lowest best-page coverage that is not low
+INSERT INTO review_queries
+WITH win AS (
+    SELECT * FROM searches WHERE searched_at >= $start AND searched_at < $end
+), texts AS (
+    SELECT query, query_text, count(*) AS n,
+           row_number() OVER (PARTITION BY query ORDER BY count(*) DESC, query_text) AS pick
+    FROM win GROUP BY query, query_text
+), vol AS (
+    SELECT query, count(*) AS searches,
+           count(DISTINCT coalesce(user_key, session_key)) AS visitors,
+           count(results) AS engine_searches,
+           count(*) FILTER (WHERE results = 0) AS engine_empty,
+           count(clicks) AS click_searches,
+           count(*) FILTER (WHERE clicks > 0) AS clicked
+    FROM win GROUP BY query
+)
+SELECT $review_id, v.query, t.query_text, v.searches, v.visitors,
+       CASE WHEN q.n_known = 0 THEN 'zero'
+            WHEN q.best_score < $min_score OR q.coverage < $min_coverage THEN 'low'
+            ELSE 'ok' END,
+       q.best_score, q.coverage, q.best_doc,
+       v.engine_searches, v.engine_empty, v.click_searches, v.clicked
+FROM vol v
+JOIN texts t ON t.query = v.query AND t.pick = 1
+JOIN query_scores q ON q.query = v.query AND q.index_id = $index_id;
+
+-- name: review_totals
+-- Headline figures of a review, per status: searches and unique queries.
+-- $review_id: the review
+SELECT status, sum(searches)::BIGINT AS searches, count(*) AS queries,
+       sum(engine_searches)::BIGINT AS engine_searches, sum(engine_empty)::BIGINT AS engine_empty,
+       sum(click_searches)::BIGINT AS click_searches, sum(clicked)::BIGINT AS clicked
+FROM review_queries WHERE review_id = $review_id GROUP BY status ORDER BY status;
+
+-- name: review_disagreements
+-- Where the engine's own signal and the content score disagree, in searches and unique queries:
+-- content_only = the content matches well (ok) but the engine showed nothing for most searches;
+-- engine_only = the content has no good match (zero or low) but the engine showed results.
+-- $review_id: the review
+SELECT
+    count(*) FILTER (WHERE status = 'ok' AND engine_empty * 2 > engine_searches) AS content_only_queries,
+    coalesce(sum(searches) FILTER (WHERE status = 'ok' AND engine_empty * 2 > engine_searches), 0)::BIGINT AS content_only_searches,
+    count(*) FILTER (WHERE status <> 'ok' AND engine_searches > 0 AND engine_empty * 2 < engine_searches) AS engine_only_queries,
+    coalesce(sum(searches) FILTER (WHERE status <> 'ok' AND engine_searches > 0 AND engine_empty * 2 < engine_searches), 0)::BIGINT AS engine_only_searches,
+    coalesce(sum(engine_searches), 0)::BIGINT AS engine_searches
+FROM review_queries WHERE review_id = $review_id;
+
+-- name: review_failing
+-- The failing queries of a review, most searched first, with their terms and top page.
+-- Reads review_queries, query_terms, documents.
+-- $review_id: the review
+-- $index_id: the index the review scored against
+SELECT r.query, r.example, r.searches, r.visitors, r.status, r.best_score, r.coverage,
+       coalesce((SELECT string_agg(t.term, ' ' ORDER BY t.position) FROM query_terms t
+                 WHERE t.index_id = $index_id AND t.query = r.query AND NOT t.in_best), '') AS unmatched_terms,
+       coalesce((SELECT string_agg(t.term, ' ' ORDER BY t.position) FROM query_terms t
+                 WHERE t.index_id = $index_id AND t.query = r.query AND t.df = 0), '') AS unknown_terms,
+       coalesce(d.url, r.best_doc, '') AS top_page, coalesce(d.title, '') AS top_page_title,
+       r.engine_searches, r.engine_empty, r.click_searches, r.clicked
+FROM review_queries r LEFT JOIN documents d ON d.doc_id = r.best_doc
+WHERE r.review_id = $review_id AND r.status <> 'ok'
+ORDER BY r.searches DESC, r.query;

@@ -1,0 +1,90 @@
+"""The named-statement loader and the workspace schema."""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import duckdb
+import pytest
+
+from querygap.errors import SchemaError, WorkspaceBusyError
+from querygap.sqlfiles import SQL_DIR, all_statements, parse_sql_text
+from querygap.workspace import connect, current_version, latest_schema_version, run
+
+
+def test_parses_names_docs_and_params() -> None:
+    text = "-- name: pick\n-- Pick rows.\n-- $low: the least value\nSELECT * FROM t WHERE x >= $low;\n"
+    stmts = parse_sql_text(text, "a.sql")
+    assert stmts["pick"].params == {"low"}
+    assert stmts["pick"].origin == "a.sql:1"
+    assert "Pick rows." in stmts["pick"].doc
+
+
+@pytest.mark.parametrize(
+    ("text", "message"),
+    [
+        ("SELECT 1;\n", "a.sql:1: SQL before the first '-- name:' line"),
+        ("-- name: x\nSELECT 1;\n-- name: x\nSELECT 2;\n", "a.sql:3: statement name 'x' is used twice"),
+        ("-- name: x\nSELECT $y;\n", "a.sql:1: statement 'x' uses undeclared parameter(s) y"),
+        ("-- name: x\n-- $y: why\nSELECT 1;\n", "a.sql:1: statement 'x' declares unused parameter(s) y"),
+        ("-- name: x\n-- only a comment\n", "a.sql:1: statement 'x' has no SQL"),
+    ],
+)
+def test_refuses_bad_files_with_file_and_line(text: str, message: str) -> None:
+    with pytest.raises(SchemaError) as err:
+        parse_sql_text(text, "a.sql")
+    assert str(err.value).startswith(message)
+
+
+def test_every_stage_statement_is_used_by_some_module() -> None:
+    # Docs kept honest: a named statement nobody runs is dead SQL.
+    source = "\n".join(p.read_text() for p in (SQL_DIR.parent / "querygap").rglob("*.py"))
+    unused = [name for name in all_statements() if f'"{name}"' not in source]
+    assert unused == []
+
+
+def test_run_checks_parameters(conn: duckdb.DuckDBPyConnection) -> None:
+    with pytest.raises(SchemaError, match="missing \\['sha256'\\]"):
+        run(conn, "file_by_hash", {})
+
+
+def test_schema_version_recorded(conn: duckdb.DuckDBPyConnection) -> None:
+    assert current_version(conn) == latest_schema_version() >= 1
+
+
+def test_newer_workspace_is_refused(tmp_path: Path) -> None:
+    path = tmp_path / "ws.duckdb"
+    c = connect(path)
+    c.execute("INSERT INTO schema_version VALUES (999, 'future.sql', now())")
+    c.close()
+    with pytest.raises(SchemaError, match="made by a newer querygap \\(schema version 999"):
+        connect(path)
+
+
+def test_not_a_workspace(tmp_path: Path) -> None:
+    path = tmp_path / "junk.duckdb"
+    path.write_bytes(b"this is not a database file at all" * 100)
+    with pytest.raises(SchemaError, match="junk.duckdb"):
+        connect(path)
+
+
+def test_locked_workspace_gives_a_clear_message(tmp_path: Path) -> None:
+    import subprocess
+    import sys
+    import time
+
+    path = tmp_path / "ws.duckdb"
+    connect(path).close()
+    holder = subprocess.Popen(
+        [sys.executable, "-c",
+         f"import duckdb,time; c=duckdb.connect({str(path)!r}); print('ready', flush=True); time.sleep(30)"],
+        stdout=subprocess.PIPE, text=True,
+    )
+    try:
+        assert holder.stdout is not None and holder.stdout.readline().strip() == "ready"
+        time.sleep(0.2)
+        with pytest.raises(WorkspaceBusyError, match="in use by another process"):
+            connect(path)
+    finally:
+        holder.kill()
+        holder.wait()
