@@ -106,9 +106,7 @@ def _replace_where(values: pd.Series, mask: pd.Series, func: Any) -> pd.Series:
 def _check_text_values(texts: pd.Series) -> None:
     kind = pd.api.types.infer_dtype(texts, skipna=True)
     if kind not in ("string", "empty"):
-        is_bad = texts.notna() & ~texts.map(
-            lambda value: isinstance(value, str), na_action="ignore"
-        )
+        is_bad = texts.notna() & ~texts.map(lambda value: isinstance(value, str))
         label = is_bad.idxmax()
         raise TypeError(
             f"query text must be str or missing; row {label!r} holds "

@@ -61,7 +61,7 @@ def test_series_keeps_pandas_string_dtype() -> None:
 
 def test_non_string_value_is_named() -> None:
     with pytest.raises(TypeError, match=r"row 'b' holds int 5"):
-        normalize_series(pd.Series(["ok", 5], index=["a", "b"], dtype=object))
+        normalize_series(pd.Series(["ok", None, 5], index=["a", "n", "b"], dtype=object))
 
 
 def test_empty_series() -> None:
