@@ -38,7 +38,7 @@ from typing import Any
 
 import pandas as pd
 
-__all__ = ["JOINERS", "normalize_query", "normalize_series"]
+__all__ = ["JOINERS", "check_text_series", "normalize_query", "normalize_series"]
 
 #: Punctuation kept inside words (step 4 of the punctuation policy).
 JOINERS = ".-'+#&/_"
@@ -103,7 +103,8 @@ def _replace_where(values: pd.Series, mask: pd.Series, func: Any) -> pd.Series:
     return values
 
 
-def _check_text_values(texts: pd.Series) -> None:
+def check_text_series(texts: pd.Series) -> None:
+    """Raise ``TypeError`` naming the index label of the first value neither str nor missing."""
     kind = pd.api.types.infer_dtype(texts, skipna=True)
     if kind not in ("string", "empty"):
         is_bad = texts.notna() & ~texts.map(lambda value: isinstance(value, str))
@@ -139,7 +140,7 @@ def normalize_series(texts: pd.Series) -> pd.Series:
     """
     if texts.empty:
         return texts.copy()
-    _check_text_values(texts)
+    check_text_series(texts)
     table = _translation_table()
     step = texts.astype(object).str.normalize("NFKC").str.casefold()
     # Each later pass runs only on the rows it can change (most queries are plain ASCII).
