@@ -7,6 +7,7 @@ Errors the user can fix (:class:`querygap.errors.QuerygapError`) are printed as 
 from __future__ import annotations
 
 import functools
+import shutil
 import sys
 from collections.abc import Callable
 from pathlib import Path
@@ -36,7 +37,7 @@ app = typer.Typer(
     add_completion=False,
     pretty_exceptions_enable=False,
 )
-stdout = Console(highlight=False, soft_wrap=False)
+stdout = Console(highlight=False, soft_wrap=False, width=max(shutil.get_terminal_size((120, 40)).columns, 100))
 stderr = Console(stderr=True, highlight=False)
 
 F = TypeVar("F", bound=Callable[..., Any])

@@ -102,7 +102,7 @@ def build_index(conn: duckdb.DuckDBPyConnection, settings: IndexSettings) -> tup
     if pages.empty:
         raise StageOrderError("no content pages are loaded; run 'querygap add-pages' first")
     index_id = fingerprint(pages, settings)
-    if run(conn, "index_exists", {"index_id": index_id}).fetchone()[0]:  # type: ignore[index]
+    if run(conn, "index_exists", {"index_id": index_id}).fetchall()[0][0]:  # type: ignore[index]
         with transaction(conn):
             run(conn, "index_make_current", {"index_id": index_id})
         return index_id, True
@@ -164,7 +164,8 @@ def build_index(conn: duckdb.DuckDBPyConnection, settings: IndexSettings) -> tup
 
 def load_index(conn: duckdb.DuckDBPyConnection) -> Index:
     """The current index, read back into memory."""
-    row = run(conn, "index_current").fetchone()
+    rows = run(conn, "index_current").fetchall()
+    row = rows[0] if rows else None
     if row is None:
         raise StageOrderError("no index yet; run a review (it builds the index) first")
     index_id, settings_json, n_docs, n_terms = row

@@ -12,6 +12,7 @@ from __future__ import annotations
 
 import hashlib
 import json
+import re
 from dataclasses import dataclass, field
 from pathlib import Path
 
@@ -127,7 +128,7 @@ def _raw_sql(layout: LogLayout) -> str:
             return "NULL::VARCHAR"
         if layout.format == "jsonl":
             path = _sql_str("$." + json.dumps(name))
-            return f"CASE WHEN ok THEN json_extract_string(j, {path}) END"
+            return f"json_extract_string(CASE WHEN ok THEN j END, {path})"
         return f"CAST({_quote_ident(name)} AS VARCHAR)"
 
     fields = ", ".join(
@@ -141,7 +142,7 @@ def _raw_sql(layout: LogLayout) -> str:
         )
     if layout.format == "jsonl":
         inner = (
-            "SELECT l.line, r.j, coalesce(json_valid(r.j) AND json_type(r.j) = 'OBJECT', false) AS ok"
+            "SELECT l.line, r.j, coalesce(json_type(CASE WHEN json_valid(r.j) THEN r.j END) = 'OBJECT', false) AS ok"
             " FROM stage_read r JOIN stage_lines l ON l.k = r.rowid"
         )
         return (
@@ -155,9 +156,23 @@ def _raw_sql(layout: LogLayout) -> str:
     )
 
 
+_PLACEHOLDER = re.compile(r"\[([a-z_]+)\]")
+_MARKED = re.compile(r"qgmark([a-z_]+?)qgmark")
+
+
+def normalize_keeping_placeholders(texts: pd.Series) -> pd.Series:
+    """Normalize redacted texts; placeholders such as ``[email]`` survive as they are.
+
+    The analyzer drops placeholders, so a redacted item neither matches nor counts against a query.
+    """
+    marked = texts.astype(object).str.replace(_PLACEHOLDER, r" qgmark\1qgmark ", regex=True)
+    return normalize_series(marked).astype(object).str.replace(_MARKED, r"[\1]", regex=True)
+
+
 def workspace_secret(conn: duckdb.DuckDBPyConnection) -> bytes:
     """The workspace's hashing secret, created on first use."""
-    row = conn.execute("SELECT secret FROM workspace_secret").fetchone()
+    rows = conn.execute("SELECT secret FROM workspace_secret").fetchall()
+    row = rows[0] if rows else None
     if row:
         return bytes(row[0])
     secret = new_secret()
@@ -176,17 +191,17 @@ def load_log(conn: duckdb.DuckDBPyConnection, path: Path, options: LoadOptions) 
         overrides=options.columns,
     )
     sha = file_sha256(path)
-    known = run(conn, "file_by_hash", {"sha256": sha}).fetchone()
+    found = run(conn, "file_by_hash", {"sha256": sha}).fetchall()
+    known = found[0] if found else None
     if known:
         return LoadResult(str(path), int(known[0]), True, 0, 0, 0, 0, {}, layout.mapping)
-    with transaction(conn):
-        return _load_staged(conn, path, layout, sha, options)
+    return _load_staged(conn, path, layout, sha, options)
 
 
 def _load_staged(
     conn: duckdb.DuckDBPyConnection, path: Path, layout: LogLayout, sha: str, options: LoadOptions
 ) -> LoadResult:
-    file_id = int(run(conn, "next_file_id").fetchone()[0])  # type: ignore[index]
+    file_id = int(run(conn, "next_file_id").fetchall()[0][0])  # type: ignore[index]
     read_sql, first, has_rejects = _read_sql(layout)
     for table in ("qg_reject_errors", "qg_reject_scans"):
         conn.execute(f"DROP TABLE IF EXISTS {table}")
@@ -199,7 +214,7 @@ def _load_staged(
                 f"{path}: the gzip data ends early or is damaged ({first_line})"
             ) from None
         raise InputError(f"{path}: cannot be read as {layout.format}: {first_line}") from None
-    n_read = int(conn.execute("SELECT count(*) FROM stage_read").fetchone()[0])  # type: ignore[index]
+    n_read = int(conn.execute("SELECT count(*) FROM stage_read").fetchall()[0][0])  # type: ignore[index]
     structural = pd.DataFrame(columns=["line", "field", "reason", "raw"])
     if has_rejects:
         structural = conn.execute(
@@ -219,7 +234,7 @@ def _load_staged(
     )
     run(conn, "stage_line_numbers", {"first": first, "total": n_read + len(structural)})
     conn.execute(f"CREATE OR REPLACE TEMP TABLE stage_raw AS {_raw_sql(layout)}")
-    blank_lines = n_read - int(conn.execute("SELECT count(*) FROM stage_raw").fetchone()[0])  # type: ignore[index]
+    blank_lines = n_read - int(conn.execute("SELECT count(*) FROM stage_raw").fetchall()[0][0])  # type: ignore[index]
     names = layout.mapping
     conn.execute(f"SET TimeZone = {_sql_str(options.time_zone)}")
     try:
@@ -227,7 +242,8 @@ def _load_staged(
             conn,
             "stage_typed",
             {
-                "time_format": options.time_format,
+                "time_format": options.time_format or "%Y-%m-%d %H:%M:%S",
+                "use_format": bool(options.time_format),
                 "max_query_chars": options.max_query_chars,
                 "future_slack_hours": options.future_slack_hours,
                 "f_timestamp": names["timestamp"],
@@ -267,50 +283,52 @@ def _load_staged(
     conn.execute("CREATE OR REPLACE TEMP TABLE stage_key_map AS SELECT * FROM stage_key_map_df")
     conn.unregister("stage_key_map_df")
 
-    run(conn, "stage_rows", {"file_id": file_id})
-    run(conn, "store_duplicates", {"file_id": file_id})
-    run(conn, "store_new_searches")
-    run(conn, "store_typed_rejects", {"file_id": file_id})
-    if len(structural):
-        raw, _ = redact_series(structural["raw"].astype(object).fillna(""), options.redaction)
-        conn.register(
-            "stage_struct_df",
-            pd.DataFrame(
-                {
-                    "file_id": file_id,
-                    "line": structural["line"].astype("int64"),
-                    "field": structural["field"],
-                    "reason": structural["reason"],
-                    "raw": raw.str.slice(0, 2000),
-                }
-            ),
+    # Staging used temp tables only; from here on the workspace changes, all or nothing.
+    with transaction(conn):
+        run(conn, "stage_rows", {"file_id": file_id})
+        run(conn, "store_duplicates", {"file_id": file_id})
+        run(conn, "store_new_searches")
+        run(conn, "store_typed_rejects", {"file_id": file_id})
+        if len(structural):
+            raw, _ = redact_series(structural["raw"].astype(object).fillna(""), options.redaction)
+            conn.register(
+                "stage_struct_df",
+                pd.DataFrame(
+                    {
+                        "file_id": file_id,
+                        "line": structural["line"].astype("int64"),
+                        "field": structural["field"],
+                        "reason": structural["reason"],
+                        "raw": raw.str.slice(0, 2000),
+                    }
+                ),
+            )
+            conn.execute("INSERT INTO rejects SELECT * FROM stage_struct_df")
+            conn.unregister("stage_struct_df")
+        parsed, typed_rejects, dupes = run(conn, "load_counts", {"file_id": file_id}).fetchall()[0]  # type: ignore[misc]
+        rejected = int(typed_rejects) + len(structural)
+        rows_read = n_read - blank_lines + len(structural)
+        loaded = int(parsed) - int(dupes)
+        for kind, items in counts.items():
+            if items:
+                conn.execute("INSERT INTO redactions VALUES (?, ?, ?)", [file_id, kind, int(items)])
+        run(
+            conn,
+            "insert_log_file",
+            {
+                "file_id": file_id,
+                "path": str(path),
+                "sha256": sha,
+                "format": layout.format,
+                "columns_used": json.dumps(layout.mapping),
+                "time_zone": options.time_zone,
+                "redacted": options.redaction.enabled,
+                "rows_read": rows_read,
+                "rows_loaded": loaded,
+                "rows_rejected": rejected,
+                "rows_duplicate": int(dupes),
+            },
         )
-        conn.execute("INSERT INTO rejects SELECT * FROM stage_struct_df")
-        conn.unregister("stage_struct_df")
-    parsed, typed_rejects, dupes = run(conn, "load_counts", {"file_id": file_id}).fetchone()  # type: ignore[misc]
-    rejected = int(typed_rejects) + len(structural)
-    rows_read = n_read - blank_lines + len(structural)
-    loaded = int(parsed) - int(dupes)
-    for kind, items in counts.items():
-        if items:
-            conn.execute("INSERT INTO redactions VALUES (?, ?, ?)", [file_id, kind, int(items)])
-    run(
-        conn,
-        "insert_log_file",
-        {
-            "file_id": file_id,
-            "path": str(path),
-            "sha256": sha,
-            "format": layout.format,
-            "columns_used": json.dumps(layout.mapping),
-            "time_zone": options.time_zone,
-            "redacted": options.redaction.enabled,
-            "rows_read": rows_read,
-            "rows_loaded": loaded,
-            "rows_rejected": rejected,
-            "rows_duplicate": int(dupes),
-        },
-    )
     for table in (
         "stage_read",
         "stage_lines",

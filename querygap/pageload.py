@@ -244,7 +244,7 @@ def load_content(
         conn.unregister("stage_pages_df")
         added, changed, unchanged, gone = run(
             conn, "content_changes", {"source": source}
-        ).fetchone()  # type: ignore[misc]
+        ).fetchall()[0]  # type: ignore[misc]
         run(conn, "content_upsert")
         run(conn, "content_mark_gone", {"source": source})
         run(conn, "content_replace_boilerplate", {"source": source})
@@ -253,9 +253,11 @@ def load_content(
                 "INSERT INTO boilerplate VALUES (?, ?, ?)",
                 [(source, b[:500], n) for b, n in sorted(boiler.items())],
             )
-        conn.executemany(
-            "INSERT INTO page_rejects VALUES (?, ?, ?, now())", [(source, p, r) for p, r in rejects]
-        )
+        if rejects:
+            conn.executemany(
+                "INSERT INTO page_rejects VALUES (?, ?, ?, now())",
+                [(source, p, r) for p, r in rejects],
+            )
         run(
             conn,
             "content_record_load",

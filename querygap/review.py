@@ -65,7 +65,7 @@ class ReviewResult:
 
 def latest_window(conn: duckdb.DuckDBPyConnection, tz: str = "UTC") -> Window:
     """The ISO week of the newest search in the workspace."""
-    first, last, n = run(conn, "review_log_span").fetchone()  # type: ignore[misc]
+    first, last, n = run(conn, "review_log_span").fetchall()[0]  # type: ignore[misc]
     if not n:
         raise StageOrderError("no searches are loaded; run 'querygap add-log' first")
     return week_of(last, tz)
@@ -104,6 +104,7 @@ def run_review(
     t0 = time.perf_counter()
     say("flag")
     with transaction(conn):
+        run(conn, "review_clear_queries", {"review_id": window.review_id})
         run(conn, "review_clear", {"review_id": window.review_id})
         run(
             conn,

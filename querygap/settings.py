@@ -31,7 +31,7 @@ class ReviewSettings:
     ``min_score`` and ``min_coverage`` were chosen on the demo data (see README, "Statuses").
     """
 
-    min_score: float = 0.10
+    min_score: float = 0.05
     min_coverage: float = 0.60
     index: IndexSettings = field(default_factory=IndexSettings)
 

@@ -75,10 +75,10 @@ def current_version(conn: duckdb.DuckDBPyConnection) -> int:
     """The schema version recorded in the workspace (0 for an empty file)."""
     exists = conn.execute(
         "SELECT count(*) FROM information_schema.tables WHERE table_name = 'schema_version'"
-    ).fetchone()
+    ).fetchall()[0]
     if not exists or exists[0] == 0:
         return 0
-    row = conn.execute("SELECT coalesce(max(version), 0) FROM schema_version").fetchone()
+    row = conn.execute("SELECT coalesce(max(version), 0) FROM schema_version").fetchall()[0]
     return int(row[0]) if row else 0
 
 

@@ -18,7 +18,8 @@ SELECT k, line FROM good;
 -- Parse the raw text fields. Reads stage_raw (line, ts_raw, query_raw, session_raw, user_raw,
 -- results_raw, clicks_raw, parse_error); writes temp table stage_typed with the first problem of
 -- each row in problem_field / problem. Naive timestamps are read in the session's TimeZone.
--- $time_format: a strptime format for timestamps, or '' to accept ISO 8601 and epoch numbers
+-- $time_format: a strptime format for timestamps (used when $use_format)
+-- $use_format: true to read timestamps with $time_format, false for ISO 8601 and epoch numbers
 -- $max_query_chars: longer query texts are rejected
 -- $future_slack_hours: timestamps later than now plus this many hours are rejected
 -- $f_timestamp: the file's name for the timestamp field, for messages
@@ -31,7 +32,7 @@ WITH parsed AS (
         line, ts_raw, query_raw, session_raw, user_raw, results_raw, clicks_raw, parse_error,
         CASE
             WHEN ts_raw IS NULL THEN NULL
-            WHEN $time_format <> '' THEN try_strptime(trim(ts_raw), $time_format)::TIMESTAMPTZ
+            WHEN $use_format THEN try_strptime(trim(ts_raw), $time_format)::TIMESTAMPTZ
             WHEN regexp_full_match(trim(ts_raw), '[0-9]{9,10}(\.[0-9]+)?')
                 THEN to_timestamp(try_cast(trim(ts_raw) AS DOUBLE))
             WHEN regexp_full_match(trim(ts_raw), '[0-9]{12,13}')
@@ -64,7 +65,7 @@ SELECT
     END AS problem_field,
     CASE
         WHEN parse_error IS NOT NULL THEN parse_error
-        WHEN query_raw IS NULL THEN 'the query is missing'
+        WHEN query_raw IS NULL THEN 'the query is missing or empty'
         WHEN trim(query_raw) = '' THEN 'the query is empty'
         WHEN length(query_raw) > $max_query_chars
             THEN 'the query is ' || length(query_raw) || ' characters long (limit '
@@ -72,7 +73,7 @@ SELECT
         WHEN ts_raw IS NULL OR trim(ts_raw) = '' THEN 'the timestamp is missing'
         WHEN searched_at IS NULL
             THEN 'the timestamp ' || left(ts_raw, 40) || ' is not a date and time'
-                 || CASE WHEN $time_format = ''
+                 || CASE WHEN NOT $use_format
                          THEN ' (ISO 8601 or epoch seconds; pass --time-format otherwise)'
                          ELSE ' in the format ' || $time_format END
         WHEN searched_at > now() + to_hours($future_slack_hours)

@@ -14,10 +14,13 @@ WHERE s.searched_at >= $start AND s.searched_at < $end
   AND NOT EXISTS (SELECT 1 FROM query_scores q WHERE q.index_id = $index_id AND q.query = s.query)
 ORDER BY 1;
 
--- name: review_clear
+-- name: review_clear_queries
 -- Forget an earlier run of the same review (reruns replace, never add).
 -- $review_id: the review
 DELETE FROM review_queries WHERE review_id = $review_id;
+
+-- name: review_clear
+-- $review_id: the review
 DELETE FROM reviews WHERE review_id = $review_id;
 
 -- name: review_record

@@ -13,7 +13,9 @@ from querygap.workspace import connect, current_version, latest_schema_version, 
 
 
 def test_parses_names_docs_and_params() -> None:
-    text = "-- name: pick\n-- Pick rows.\n-- $low: the least value\nSELECT * FROM t WHERE x >= $low;\n"
+    text = (
+        "-- name: pick\n-- Pick rows.\n-- $low: the least value\nSELECT * FROM t WHERE x >= $low;\n"
+    )
     stmts = parse_sql_text(text, "a.sql")
     assert stmts["pick"].params == {"low"}
     assert stmts["pick"].origin == "a.sql:1"
@@ -24,9 +26,15 @@ def test_parses_names_docs_and_params() -> None:
     ("text", "message"),
     [
         ("SELECT 1;\n", "a.sql:1: SQL before the first '-- name:' line"),
-        ("-- name: x\nSELECT 1;\n-- name: x\nSELECT 2;\n", "a.sql:3: statement name 'x' is used twice"),
+        (
+            "-- name: x\nSELECT 1;\n-- name: x\nSELECT 2;\n",
+            "a.sql:3: statement name 'x' is used twice",
+        ),
         ("-- name: x\nSELECT $y;\n", "a.sql:1: statement 'x' uses undeclared parameter(s) y"),
-        ("-- name: x\n-- $y: why\nSELECT 1;\n", "a.sql:1: statement 'x' declares unused parameter(s) y"),
+        (
+            "-- name: x\n-- $y: why\nSELECT 1;\n",
+            "a.sql:1: statement 'x' declares unused parameter(s) y",
+        ),
         ("-- name: x\n-- only a comment\n", "a.sql:1: statement 'x' has no SQL"),
     ],
 )
@@ -76,9 +84,13 @@ def test_locked_workspace_gives_a_clear_message(tmp_path: Path) -> None:
     path = tmp_path / "ws.duckdb"
     connect(path).close()
     holder = subprocess.Popen(
-        [sys.executable, "-c",
-         f"import duckdb,time; c=duckdb.connect({str(path)!r}); print('ready', flush=True); time.sleep(30)"],
-        stdout=subprocess.PIPE, text=True,
+        [
+            sys.executable,
+            "-c",
+            f"import duckdb,time; c=duckdb.connect({str(path)!r}); print('ready', flush=True); time.sleep(30)",
+        ],
+        stdout=subprocess.PIPE,
+        text=True,
     )
     try:
         assert holder.stdout is not None and holder.stdout.readline().strip() == "ready"
