@@ -1,7 +1,8 @@
 """The errors querygap raises on purpose.
 
-Every error a user can cause is a :class:`QuerygapError`; the command line catches that base class in
-one place, prints one line and exits with status 1. Anything else is a bug and keeps its traceback.
+Every error a user can cause is a :class:`QuerygapError`; the command line catches that base
+class in one place, prints one line and exits with status 1. Anything else is a bug and keeps
+its traceback.
 """
 
 from __future__ import annotations

@@ -3,8 +3,8 @@
 A *block* is a paragraph-like unit (a paragraph, list item, table cell, heading...). Blocks let the
 content loader find boilerplate: a block repeated on most pages of a site is navigation or footer,
 not content. HTML goes through the Lexbor parser (``selectolax``): scripts, styles, ``<nav>``,
-``<footer>``, the page-level ``<header>``, ``<aside>`` and landmark roles for navigation are dropped;
-``<main>`` (or ``role=main``) is used when the page has one.
+``<footer>``, the page-level ``<header>``, ``<aside>`` and navigation landmark roles are
+dropped; ``<main>`` (or ``role=main``) is used when the page has one.
 """
 
 from __future__ import annotations
@@ -147,7 +147,7 @@ def parse_body(text: str) -> ParsedPage:
 
 
 def decode_page(data: bytes) -> str:
-    """Page bytes to text: UTF-8 (BOM allowed), else the HTML-declared charset, else Windows-1252."""
+    """Page bytes to text: UTF-8 (BOM allowed), else the declared charset, else Windows-1252."""
     if data.startswith(b"\xef\xbb\xbf"):
         data = data[3:]
     if data.startswith((b"\xff\xfe", b"\xfe\xff")):

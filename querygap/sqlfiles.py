@@ -4,8 +4,8 @@ A file holds blocks that each open with ``-- name: <statement_name>``. The comme
 the name line document the statement; among them, ``-- $param: meaning`` declares a parameter. The
 statement text follows. DuckDB binds ``$param`` from a dict.
 
-The loader refuses, with ``file:line``: a block without a name, a duplicate name (across all files), and
-a ``$param`` used in the statement but not declared (or declared and not used).
+The loader refuses, with ``file:line``: a block without a name, a duplicate name (across all
+files), and a ``$param`` used in the statement but not declared (or declared and not used).
 """
 
 from __future__ import annotations
@@ -104,14 +104,15 @@ def all_statements(sql_dir: Path = SQL_DIR) -> dict[str, Statement]:
         for name, stmt in parse_sql_file(path).items():
             if name in found:
                 raise SchemaError(
-                    f"{stmt.origin}: statement name '{name}' already defined at {found[name].origin}"
+                    f"{stmt.origin}: statement name '{name}' is already defined at "
+                    f"{found[name].origin}"
                 )
             found[name] = stmt
     return found
 
 
 def statement(name: str) -> Statement:
-    """The statement called ``name``; an unknown name is a programming error with a clear message."""
+    """The statement called ``name``; an unknown name is a programming error."""
     stmts = all_statements()
     if name not in stmts:
         raise SchemaError(f"no SQL statement named '{name}' in {SQL_DIR}")

@@ -12,14 +12,14 @@ Inverse document frequency (``idf``):
 Model:
     tfidf     w(t, d) = tf * idf                          (default)
     bm25      w(t, d) = idf_bm25 * count * (k1 + 1) / (count + k1 * (1 - b + b * length / avglen))
-              idf_bm25 = ln(1 + (N - df + 0.5) / (df + 0.5))  (non-negative form), k1 = 1.2, b = 0.75
+              idf_bm25 = ln(1 + (N - df + 0.5) / (df + 0.5))  (non-negative), k1 = 1.2, b = 0.75
 Every page vector is then divided by its Euclidean length, and so is every query vector, so the
 score ``q . d`` is the cosine, in [0, 1]. Under bm25 the page side carries the BM25 weight and the
 query side the BM25 idf; the cosine keeps scores comparable across models.
 
-Our plain idf differs from scikit-learn's ``TfidfTransformer(smooth_idf=False)`` by exactly 1: that
-class adds 1 so that terms in every document keep a little weight. We keep the textbook form, where a
-term found on every page weighs nothing.
+Our plain idf differs from scikit-learn's ``TfidfTransformer(smooth_idf=False)`` by exactly 1:
+that class adds 1 so that terms in every document keep a little weight. We keep the textbook
+form, where a term found on every page weighs nothing.
 
 A query term that no page contains (df = 0) has no textbook idf. It cannot add to any dot product,
 but it must still count against the query, or "cheap sofa" would score well on "cheap" alone.

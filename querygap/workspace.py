@@ -43,7 +43,7 @@ def latest_schema_version() -> int:
 def connect(
     path: Path | str | None = DEFAULT_WORKSPACE, *, read_only: bool = False
 ) -> duckdb.DuckDBPyConnection:
-    """Open (and create or migrate) a workspace; ``None`` or ``":memory:"`` gives an in-memory one."""
+    """Open, create or migrate a workspace; ``None`` or ``":memory:"`` gives an in-memory one."""
     target = ":memory:" if path is None else str(path)
     if target != ":memory:":
         parent = Path(target).resolve().parent

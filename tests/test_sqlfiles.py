@@ -87,7 +87,8 @@ def test_locked_workspace_gives_a_clear_message(tmp_path: Path) -> None:
         [
             sys.executable,
             "-c",
-            f"import duckdb,time; c=duckdb.connect({str(path)!r}); print('ready', flush=True); time.sleep(30)",
+            f"import duckdb,time; c=duckdb.connect({str(path)!r}); "
+            "print('ready', flush=True); time.sleep(30)",
         ],
         stdout=subprocess.PIPE,
         text=True,
