@@ -368,3 +368,26 @@ def apply_rules(
         compiled.pattern, lambda m: compiled.output[m.group(0)], regex=True
     ).str.strip()
     return Applied(rewritten, rewritten != analyzed, match_rules(analyzed, compiled))
+
+
+def targeted(analyzed: pd.Series, rules: list[Rule], analyzer: AnalyzerSettings) -> pd.DataFrame:
+    """Which texts contain each rule's term (whole terms): columns ``row`` and ``rule``.
+
+    Unlike :func:`match_rules`, overlapping terms all count: ``hosepipe ban`` contains both the
+    term ``hosepipe`` and the term ``hosepipe ban``. Single-term rules are matched by a join on
+    the texts' terms; phrase terms by one vectorised substring search each.
+    """
+    analyzed = analyzed.reset_index(drop=True).astype(object)
+    terms = analyzed_text(pd.Series([r.term for r in rules], dtype=object), analyzer)
+    words = analyzed.str.split(" ").explode()
+    words = words[words.fillna("") != ""]
+    long = pd.DataFrame({"row": words.index.to_numpy(np.int64), "term": words.to_numpy()})
+    rule_terms = pd.DataFrame({"rule": np.arange(len(rules), dtype=np.int64), "term": terms})
+    single = rule_terms[(rule_terms["term"] != "") & ~rule_terms["term"].str.contains(" ")]
+    parts = [long.merge(single, on="term")[["row", "rule"]]]
+    padded = " " + analyzed + " "
+    for rule, phrase in rule_terms[rule_terms["term"].str.contains(" ")].itertuples(index=False):
+        hit = np.flatnonzero(padded.str.contains(f" {phrase} ", regex=False).to_numpy())
+        parts.append(pd.DataFrame({"row": hit, "rule": rule}))
+    pairs = pd.concat(parts, ignore_index=True).astype(np.int64)
+    return pairs.drop_duplicates().sort_values(["row", "rule"]).reset_index(drop=True)
