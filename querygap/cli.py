@@ -300,6 +300,110 @@ def version() -> None:
     stdout.print(f"querygap {__version__}")
 
 
+# --- check: simulate a rules file, observe a change ---------------------------------------------
+# Exit status: 0 the check ran and found nothing to act on; 1 error; 3 (EXIT_PROBLEM) the
+# simulation made an ok query worse, or the observation found a rule not fixed.
+
+
+@app.command("simulate")
+@reports_errors
+def simulate_command(
+    rules_file: Annotated[Path, typer.Argument(help="The rules file (kind,term,replacement,...).")],
+    db: DbOpt = DEFAULT_WORKSPACE,
+    week: Annotated[
+        str | None, typer.Option(help="The review to simulate on, e.g. 2026-W46 (default: newest).")
+    ] = None,
+    start: Annotated[str | None, typer.Option("--from", help="Review window's first day.")] = None,
+    end: Annotated[str | None, typer.Option("--to", help="Review window's last day.")] = None,
+    tz: TzOpt = "UTC",
+    out_dir: Annotated[Path, typer.Option("--out", help="Folder for the review's files.")] = Path(
+        "reports"
+    ),
+    not_rejected: Annotated[
+        bool, typer.Option("--not-rejected", help="Apply every rule not rejected, not only accepted ones.")
+    ] = False,
+    score_margin: Annotated[
+        float, typer.Option(help="An ok query whose best cosine falls by more than this regressed.")
+    ] = 0.1,
+    as_json: JsonOpt = False,
+) -> None:
+    """Apply a rules file to a review's queries, re-score them and report fixed and regressed.
+
+    Exit status 3 when a query that was ok gets worse. Example: querygap simulate rules.csv --week 2026-W46
+    """
+    from querygap import checks_console as checks
+    from querygap.simulate import simulate
+
+    conn = connect(db)
+    window = pick_window(conn, week, start, end, tz)
+    result = simulate(
+        conn, rules_file, window.review_id, out_dir / window.review_id, not_rejected, score_margin
+    )
+    if as_json:
+        out.emit_json(stdout, checks.simulation_payload(result))
+    else:
+        stdout.print(checks.simulation_table(result))
+        for line in checks.simulation_lines(result):
+            stdout.print(line, markup=False)
+    if result.regressions:
+        raise typer.Exit(checks.EXIT_PROBLEM)
+
+
+@app.command("observe")
+@reports_errors
+def observe_command(
+    rules_file: Annotated[
+        Path | None, typer.Argument(help="The rules file (default: the accepted decisions).")
+    ] = None,
+    change_date: Annotated[
+        str, typer.Option("--change-date", help="Day the change went live, YYYY-MM-DD.")
+    ] = "",
+    before_week: Annotated[
+        str | None, typer.Option(help="ISO week before the change (default: the days before).")
+    ] = None,
+    after_week: Annotated[
+        str | None, typer.Option(help="ISO week after the change (default: the days after).")
+    ] = None,
+    days: Annotated[int, typer.Option(help="Days on each side of the change.")] = 7,
+    db: DbOpt = DEFAULT_WORKSPACE,
+    tz: TzOpt = "UTC",
+    not_rejected: Annotated[
+        bool, typer.Option("--not-rejected", help="Observe every rule not rejected, not only accepted ones.")
+    ] = False,
+    alpha: Annotated[float, typer.Option(help="Significance level of the test.")] = 0.05,
+    min_searches: Annotated[
+        int, typer.Option(help="Fewest searches per side for a verdict.")
+    ] = 30,
+    exact: Annotated[
+        bool, typer.Option(help="Use Fisher's exact test where the z-test is not trusted.")
+    ] = True,
+    as_json: JsonOpt = False,
+) -> None:
+    """Compare searches before and after a change, per rule: fixed, not fixed, or not enough data.
+
+    Exit status 3 when a rule is not fixed. Example: querygap observe rules.csv --change-date 2026-11-16
+    """
+    from querygap import checks_console as checks
+    from querygap.observe import change_instant, observation_windows, observe
+
+    if not change_date:
+        raise ConfigError("--change-date is required, e.g. --change-date 2026-11-16")
+    change_at = change_instant(change_date, tz)
+    before, after = observation_windows(change_at, before_week, after_week, days, tz)
+    conn = connect(db)
+    result = observe(
+        conn, rules_file, change_at, before, after, not_rejected, alpha, min_searches, exact
+    )
+    if as_json:
+        out.emit_json(stdout, checks.observation_payload(result))
+    else:
+        stdout.print(checks.observation_table(result))
+        for line in checks.observation_lines(result):
+            stdout.print(line, markup=False)
+    if result.not_fixed:
+        raise typer.Exit(checks.EXIT_PROBLEM)
+
+
 def main() -> None:  # pragma: no cover
     app(prog_name="querygap")
 
