@@ -83,7 +83,11 @@ def current_version(conn: duckdb.DuckDBPyConnection) -> int:
 
 
 def migrate(conn: duckdb.DuckDBPyConnection, target: str = "workspace") -> int:
-    """Run the schema scripts the workspace has not seen yet; return the resulting version."""
+    """Run every schema script the workspace has not recorded yet; return the resulting version.
+
+    Scripts are applied in number order, and a gap is filled: a workspace made by a branch that
+    had script 005 but not 003 still gets 003.
+    """
     have = current_version(conn)
     latest = latest_schema_version()
     if have > latest:
@@ -91,8 +95,11 @@ def migrate(conn: duckdb.DuckDBPyConnection, target: str = "workspace") -> int:
             f"{target} was made by a newer querygap (schema version {have}, this release knows "
             f"up to {latest}); upgrade querygap or use another --db"
         )
+    done: set[int] = set()
+    if have:
+        done = {int(r[0]) for r in conn.execute("SELECT version FROM schema_version").fetchall()}
     for version, path in schema_scripts():
-        if version <= have:
+        if version in done:
             continue
         conn.execute("BEGIN TRANSACTION")
         try:

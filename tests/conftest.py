@@ -37,3 +37,11 @@ def _wide_terminal(monkeypatch: pytest.MonkeyPatch) -> None:
 def write(path: Path, text: str, encoding: str = "utf-8") -> Path:
     path.write_text(text, encoding=encoding)
     return path
+
+
+# Hypothesis: no per-example deadline. The suite shares 2 cores with other work, and a deadline
+# there only measures the machine's load, not the code.
+from hypothesis import settings as _hypothesis_settings  # noqa: E402
+
+_hypothesis_settings.register_profile("querygap", deadline=None)
+_hypothesis_settings.load_profile("querygap")
