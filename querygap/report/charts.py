@@ -130,8 +130,8 @@ def profile_chart(data: ReportData) -> Chart:
     title = "How searches spread over queries (Zipf's law)"
     x_label, y_label = "rank of the query (1 = most searched, log scale)", "searches (log scale)"
     _layout(fig, title, x_label, y_label)
-    fig.update_xaxes(type="log")
-    fig.update_yaxes(type="log")
+    fig.update_xaxes(type="log", dtick=1)  # a tick at each power of ten
+    fig.update_yaxes(type="log", dtick=1)
     b = data.bands.set_index("band")
     slope = zipf_slope(p["searches"].to_numpy(dtype=float))
     n = len(p)
