@@ -21,6 +21,7 @@ from querygap.report.charts import all_charts, zipf_slope
 from querygap.report.data import band_rates, daily_rates, frequency_profile, load_report_data
 from querygap.report.html import NOT_RUN
 from querygap.report.svg import chart_svgs
+from querygap.safe_csv import neutralize_cell
 from querygap.workspace import connect
 
 
@@ -129,9 +130,11 @@ def test_failing_table_equals_the_csv(page: str, csv: pd.DataFrame) -> None:
     table = tree.css_first("#failing-table")
     rows = table.css("tbody tr")
     assert len(rows) == len(csv) == int(table.attributes["data-rows"])
-    queries = [r.css("td")[0].text() for r in rows]
+    queries = [neutralize_cell(r.css("td")[0].text()) for r in rows]
+    examples = [neutralize_cell(r.css("td")[1].text()) for r in rows]
     searches = [int(r.css("td")[2].attributes["data-v"]) for r in rows]
     assert queries == csv["query"].astype(str).tolist()
+    assert examples == csv["example"].astype(str).tolist()  # the CSV neutralises formulas
     assert searches == csv["searches"].tolist()
     card = tree.css_first('div.card[data-figure="failing searches (zero or low)"]')
     assert int(card.attributes["data-searches"]) == csv["searches"].sum()
