@@ -24,7 +24,12 @@ from querygap.workspace import frame
 #: the remaining 20% the tail.
 BAND_LIMITS = (("head", 0.5), ("middle", 0.8), ("tail", 1.0))
 FAILING = ("zero", "low")
-OPTIONAL_TABLES = ("clusters", "proposals", "checks")
+#: The later stages' tables and the named statement reading each for one review.
+OPTIONAL_TABLES = {
+    "clusters": "report_clusters",
+    "proposals": "report_proposals",
+    "checks": "report_checks",
+}
 
 
 @dataclass
@@ -137,7 +142,7 @@ def _optional(
 ) -> pd.DataFrame | None:
     if "review_id" not in present.get(table, []):
         return None
-    df = frame(conn, f"report_{table}", {"review_id": review_id})
+    df = frame(conn, OPTIONAL_TABLES[table], {"review_id": review_id})
     return df.drop(columns="review_id") if len(df) else None
 
 
