@@ -12,6 +12,8 @@ from collections.abc import Sequence
 from html import escape
 from pathlib import Path
 
+import numpy as np
+
 from querygap.report.charts import OKABE_ITO, STATUS_COLOURS, Chart
 
 W, H = 800, 450
@@ -78,7 +80,7 @@ def bar_svg(
         )
     if len(series) > 1:
         for j, (name, _values, colour) in enumerate(series):
-            x = LEFT + 10 + 110 * j
+            x = W - RIGHT - 110 * (len(series) - j)
             body.append(f'<rect x="{x}" y="{TOP - 12}" width="12" height="12" fill="{colour}"/>')
             body.append(f'<text x="{x + 17}" y="{TOP - 2}">{escape(name)}</text>')
     return _frame(title, x_label, y_label, body)
@@ -132,14 +134,17 @@ def chart_svgs(charts: dict[str, Chart]) -> dict[str, str]:
     if "profile" in charts:
         c = charts["profile"]
         d = c.data
-        colours = [STATUS_COLOURS[s] for s in d["status"]]  # type: ignore[attr-defined]
+        # Failing queries drawn last, so the ok ones do not hide them.
+        status = np.asarray(d["status"])
+        order = np.argsort(status != "ok", kind="stable")
+        colours = [STATUS_COLOURS[s] for s in status[order]]
         out["query_profile.svg"] = loglog_svg(
             c.title,
             c.x_label,
             c.y_label,
-            d["rank"],
-            d["searches"],
-            colours,  # type: ignore[arg-type]
+            np.asarray(d["rank"])[order].tolist(),
+            np.asarray(d["searches"])[order].tolist(),
+            colours,
         )
     if "bands" in charts:
         c = charts["bands"]
