@@ -219,6 +219,7 @@ def test_later_stage_sections_light_up(demo: tuple[Path, Path], tmp_path: Path) 
     assert len(tree.css("#proposals-table tbody tr")) == 2
     assert tree.css_first("#proposals-table tbody tr td").text() == "spelling"  # most rescued first
     assert "fixed" in tree.css_first("#checks-table").text()
-    assert tree.css_first('div[data-chart="clusters"]') is not None
+    reading = tree.css_first('div[data-chart="clusters"] p.reading').text()
+    assert "\u201cbill <b>pay</b>\u201d, holds 90 failing searches" in reading  # escaped once
     assert tree.css("b") == []
     assert "proposals.csv" in [a.attributes["href"] for a in tree.css("section#files a")]

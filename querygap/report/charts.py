@@ -255,7 +255,8 @@ def clusters_chart(data: ReportData, top: int = 15) -> Chart | None:
     total = int(data.clusters["searches"].sum())
     share = c["searches"].sum() / total if total else 0.0
     reading = (
-        f"The largest cluster, \u201c{labels[-1]}\u201d, holds {int(c['searches'].iloc[-1]):,} "
+        f"The largest cluster, \u201c{c['label'].iloc[-1]}\u201d, "
+        f"holds {int(c['searches'].iloc[-1]):,} "
         f"failing searches; these {len(c)} clusters hold {pct(share)} of the clustered ones."
     )
     return Chart("clusters", title, x_label, y_label, reading, fig)
