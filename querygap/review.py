@@ -56,6 +56,7 @@ class ReviewResult:
     searches: int
     queries: int
     failing_csv: Path | None = None
+    report_html: Path | None = None
     timings: dict[str, float] = field(default_factory=dict)
 
     def rate(self, status: str, per: str = "searches") -> float:
@@ -125,9 +126,15 @@ def run_review(
     result = summarize(conn, window, index_id, reused, len(todo))
     result.timings = timings
     if out_dir is not None:
+        from querygap.report import write_report  # the report reads this module's exports
+
         t0 = time.perf_counter()
         result.failing_csv = export_failing(conn, window.review_id, index_id, out_dir)
         timings["export"] = time.perf_counter() - t0
+        t0 = time.perf_counter()
+        say("report")
+        result.report_html = write_report(conn, window.review_id, out_dir)
+        timings["report"] = time.perf_counter() - t0
     return result
 
 

@@ -1,0 +1,29 @@
+"""The review report: reports/<review>/index.html, and static copies of its main charts."""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import duckdb
+
+from querygap.report.charts import all_charts
+from querygap.report.data import load_report_data
+from querygap.report.html import EXPORTS, render_page
+from querygap.report.svg import write_svgs
+
+__all__ = ["write_report"]
+
+
+def write_report(conn: duckdb.DuckDBPyConnection, review_id: str, out_dir: Path) -> Path:
+    """Write ``out_dir/index.html`` (and ``out_dir/charts/*.svg``) for a flagged review.
+
+    Run it after the exports, so the page links every export file present in ``out_dir``.
+    """
+    data = load_report_data(conn, review_id)
+    charts = all_charts(data)
+    out_dir.mkdir(parents=True, exist_ok=True)
+    svgs = [p.name for p in write_svgs(charts, out_dir / "charts")]
+    present = [name for name, _ in EXPORTS if (out_dir / name).is_file()]
+    path = out_dir / "index.html"
+    path.write_text(render_page(data, charts, present, svgs), encoding="utf-8")
+    return path
