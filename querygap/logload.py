@@ -99,12 +99,11 @@ def _read_sql(layout: LogLayout) -> tuple[str, int, bool]:
     if layout.format == "parquet":
         return (f"SELECT * FROM read_parquet({path}, file_row_number = true)", 1, False)
     if layout.format == "jsonl":
+        # DuckDB 2.0 reads CR LF files right only when it detects the line ending itself
+        # (new_line = '\\r\\n' with store_rejects reads no rows at all).
         opts = (
             "columns = {'j': 'VARCHAR'}, header = false, auto_detect = false, delim = '\\x1f', "
-            "quote = '', escape = ''"
-            # DuckDB 2.0 reads CR LF files right only when it detects the line ending itself
-            # (new_line = '\\r\\n' with store_rejects reads no rows at all).
-            + ("" if layout.crlf else ", new_line = '\\n'")
+            "quote = '', escape = ''" + ("" if layout.crlf else ", new_line = '\\n'")
         )
         first = 1
     else:
@@ -224,9 +223,7 @@ def _load_staged(
             if "state machine" in first_line
             else ""
         )
-        raise InputError(
-            f"{path}: cannot be read as {layout.format}: {first_line}{hint}"
-        ) from None
+        raise InputError(f"{path}: cannot be read as {layout.format}: {first_line}{hint}") from None
     n_read = int(conn.execute("SELECT count(*) FROM stage_read").fetchall()[0][0])  # type: ignore[index]
     structural = pd.DataFrame(columns=["line", "field", "reason", "raw"])
     if has_rejects:

@@ -47,11 +47,14 @@ def generate_log(path: Path, rows: int, distinct_queries: int = 50_000) -> Path:
         COPY (
             SELECT
                 CASE WHEN i % 1000 = 999 THEN 'not a time'
-                     ELSE strftime(TIMESTAMP '2026-11-02' + to_seconds(i // 10), '%Y-%m-%dT%H:%M:%SZ')
+                     ELSE strftime(TIMESTAMP '2026-11-02' + to_seconds(i // 10),
+                                   '%Y-%m-%dT%H:%M:%SZ')
                 END AS timestamp,
                 'v' || (i * 7919 % 200000) AS visitor_id,
-                'query ' || (floor({distinct_queries} ** ((i * 2654435761 % 1000003) / 1000003.0)))::BIGINT
-                    || CASE WHEN i % 97 = 0 THEN ' mail ann' || (i % 50) || '@example.org' ELSE '' END
+                'query '
+                    || floor({distinct_queries} ** ((i * 2654435761 % 1000003) / 1000003.0))::BIGINT
+                    || CASE WHEN i % 97 = 0 THEN ' mail ann' || (i % 50) || '@example.org'
+                            ELSE '' END
                     AS query,
                 i % 7 AS results,
                 i % 3 AS clicks
