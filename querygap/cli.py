@@ -55,7 +55,7 @@ def reports_errors(func: F) -> F:
         try:
             return func(*args, **kwargs)
         except QuerygapError as exc:
-            stderr.print(f"Error: {exc}", markup=False, highlight=False)
+            stderr.print(f"Error: {exc}", markup=False, highlight=False, soft_wrap=True)
             raise typer.Exit(1) from None
 
     return wrapper  # type: ignore[return-value]
@@ -141,7 +141,13 @@ def add_log(
         return
     stdout.print(out.load_table(results))
     for r in results:
-        stdout.print(r.reconciliation(), markup=False)
+        stdout.print(r.reconciliation(), markup=False, soft_wrap=True)
+        if r.ignored:
+            stdout.print(
+                f"{r.path}: columns not used (not stored): {', '.join(r.ignored)}",
+                markup=False,
+                soft_wrap=True,
+            )
     if any(r.rejected for r in results):
         stdout.print(
             "Rejected rows are kept with their reasons: SELECT * FROM rejects", markup=False
@@ -286,7 +292,9 @@ def demo(
     from querygap.demo import run_demo
 
     result, rows = run_demo(
-        db, out_dir, say=lambda msg: None if as_json else stdout.print(msg, markup=False)
+        db,
+        out_dir,
+        say=lambda msg: None if as_json else stdout.print(msg, markup=False, soft_wrap=True),
     )
     if as_json:
         out.emit_json(stdout, out.review_payload(result))

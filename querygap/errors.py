@@ -24,6 +24,10 @@ class ConfigError(QuerygapError):
     """A setting is out of range, or two settings contradict each other."""
 
 
+class OutputError(QuerygapError):
+    """An output folder or file cannot be written (names the path and the reason)."""
+
+
 class WorkspaceBusyError(QuerygapError):
     """Another process holds the workspace file."""
 

@@ -107,6 +107,13 @@ class LogLayout:
     delimiter: str
     columns: tuple[str, ...]  # the file's columns (or JSON keys) in order
     mapping: dict[str, str] = field(default_factory=dict)  # our field -> file column
+    crlf: bool = False  # lines end in CR LF (JSON Lines is read line by line with this ending)
+
+    @property
+    def ignored(self) -> tuple[str, ...]:
+        """The file's columns that no field uses; they are not stored."""
+        used = set(self.mapping.values())
+        return tuple(c for c in self.columns if c not in used)
 
 
 def _key(name: str) -> str:
@@ -145,7 +152,9 @@ def detect_format(path: Path, declared: str | None = None) -> tuple[str, bool]:
     return by_ext[ext], compressed
 
 
-def detect_encoding(sample: bytes, declared: str | None = None) -> tuple[str, bytes]:
+def detect_encoding(
+    sample: bytes, declared: str | None = None, source: str = "log"
+) -> tuple[str, bytes]:
     """The encoding (from a BOM, else UTF-8) and the sample with the BOM removed."""
     if declared:
         name = declared.lower().replace("_", "-")
@@ -156,8 +165,19 @@ def detect_encoding(sample: bytes, declared: str | None = None) -> tuple[str, by
         return name, sample
     if sample.startswith(codecs.BOM_UTF8):
         return "utf-8", sample[len(codecs.BOM_UTF8) :]
-    if sample.startswith((codecs.BOM_UTF16_LE, codecs.BOM_UTF16_BE)):
+    if sample.startswith(codecs.BOM_UTF16_BE):
+        # DuckDB's reader decodes UTF-16 little-endian only; big-endian would read as no rows.
+        raise InputError(
+            f"{source}: the file is UTF-16 big-endian, which the reader does not decode; convert "
+            "it first, e.g. iconv -f UTF-16BE -t UTF-8"
+        )
+    if sample.startswith(codecs.BOM_UTF16_LE):
         return "utf-16", sample
+    if b"\x00" in sample[:4096]:
+        raise InputError(
+            f"{source}: the file has NUL bytes, so it is binary or UTF-16 without a byte-order "
+            "mark; pass --encoding utf-16 for the latter, or check it is a log"
+        )
     return "utf-8", sample
 
 
@@ -297,8 +317,10 @@ def sniff_log(
             tuple(columns),
             map_columns(columns, overrides or {}, source),
         )
-    enc, sample = detect_encoding(read_sample(path, compressed), encoding)
+    enc, sample = detect_encoding(read_sample(path, compressed), encoding, source)
     text = decode_sample(sample, enc)
+    first_end = text.find("\n")
+    crlf = first_end > 0 and text[first_end - 1] == "\r"
     if form == "jsonl":
         columns = json_keys(text, source)
         delim = ""
@@ -318,4 +340,5 @@ def sniff_log(
         delim,
         tuple(columns),
         map_columns(columns, overrides or {}, source),
+        crlf,
     )

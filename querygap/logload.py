@@ -63,6 +63,7 @@ class LoadResult:
     duplicates: int
     redacted: dict[str, int]
     columns: dict[str, str]
+    ignored: tuple[str, ...] = ()  # the file's columns that no field uses (not stored)
 
     def reconciliation(self) -> str:
         """The line the command prints for this file."""
@@ -98,9 +99,11 @@ def _read_sql(layout: LogLayout) -> tuple[str, int, bool]:
     if layout.format == "parquet":
         return (f"SELECT * FROM read_parquet({path}, file_row_number = true)", 1, False)
     if layout.format == "jsonl":
+        # DuckDB 2.0 reads CR LF files right only when it detects the line ending itself
+        # (new_line = '\\r\\n' with store_rejects reads no rows at all).
         opts = (
             "columns = {'j': 'VARCHAR'}, header = false, auto_detect = false, delim = '\\x1f', "
-            "quote = '', escape = '', new_line = '\\n'"
+            "quote = '', escape = ''" + ("" if layout.crlf else ", new_line = '\\n'")
         )
         first = 1
     else:
@@ -194,7 +197,9 @@ def load_log(conn: duckdb.DuckDBPyConnection, path: Path, options: LoadOptions) 
     found = run(conn, "file_by_hash", {"sha256": sha}).fetchall()
     known = found[0] if found else None
     if known:
-        return LoadResult(str(path), int(known[0]), True, 0, 0, 0, 0, {}, layout.mapping)
+        return LoadResult(
+            str(path), int(known[0]), True, 0, 0, 0, 0, {}, layout.mapping, layout.ignored
+        )
     return _load_staged(conn, path, layout, sha, options)
 
 
@@ -213,7 +218,12 @@ def _load_staged(
             raise InputError(
                 f"{path}: the gzip data ends early or is damaged ({first_line})"
             ) from None
-        raise InputError(f"{path}: cannot be read as {layout.format}: {first_line}") from None
+        hint = (
+            "; the file may mix line endings (CR LF and LF): convert it, e.g. with dos2unix"
+            if "state machine" in first_line
+            else ""
+        )
+        raise InputError(f"{path}: cannot be read as {layout.format}: {first_line}{hint}") from None
     n_read = int(conn.execute("SELECT count(*) FROM stage_read").fetchall()[0][0])  # type: ignore[index]
     structural = pd.DataFrame(columns=["line", "field", "reason", "raw"])
     if has_rejects:
@@ -228,6 +238,7 @@ def _load_staged(
         ]
         if layout.format == "jsonl":
             structural["field"] = "(line)"
+        structural["field"] = structural["field"].fillna("(line)")
     conn.execute(
         "CREATE OR REPLACE TEMP TABLE stage_bad_lines AS SELECT unnest(?::BIGINT[]) AS line",
         [structural["line"].astype("int64").tolist()],
@@ -291,6 +302,11 @@ def _load_staged(
         run(conn, "store_typed_rejects", {"file_id": file_id})
         if len(structural):
             raw, _ = redact_series(structural["raw"].astype(object).fillna(""), options.redaction)
+            raw = raw.str.slice(0, 2000)
+            if {"session", "user"} & names.keys():
+                # A malformed line's fields cannot be told apart, so its session or user key
+                # could not be hashed: keep no raw text rather than a raw visitor key.
+                raw = pd.Series([None] * len(raw), dtype=object)
             conn.register(
                 "stage_struct_df",
                 pd.DataFrame(
@@ -299,7 +315,7 @@ def _load_staged(
                         "line": structural["line"].astype("int64"),
                         "field": structural["field"],
                         "reason": structural["reason"],
-                        "raw": raw.str.slice(0, 2000),
+                        "raw": raw.to_numpy(),
                     }
                 ),
             )
@@ -350,4 +366,5 @@ def _load_staged(
         int(dupes),
         {k: int(v) for k, v in counts.items()},
         layout.mapping,
+        layout.ignored,
     )

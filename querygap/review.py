@@ -16,7 +16,7 @@ from pathlib import Path
 import duckdb
 import pandas as pd
 
-from querygap.errors import StageOrderError
+from querygap.errors import OutputError, StageOrderError
 from querygap.indexing import build_index, load_index
 from querygap.safe_csv import write_csv
 from querygap.scoring import score_queries, store_scores
@@ -188,5 +188,13 @@ def failing_queries(conn: duckdb.DuckDBPyConnection, review_id: str, index_id: s
 def export_failing(
     conn: duckdb.DuckDBPyConnection, review_id: str, index_id: str, out_dir: Path
 ) -> Path:
-    out_dir.mkdir(parents=True, exist_ok=True)
-    return write_csv(failing_queries(conn, review_id, index_id), out_dir / "failing_queries.csv")
+    """Write failing_queries.csv into ``out_dir`` (created if missing)."""
+    data = failing_queries(conn, review_id, index_id)
+    try:
+        out_dir.mkdir(parents=True, exist_ok=True)
+        return write_csv(data, out_dir / "failing_queries.csv")
+    except OSError as exc:
+        raise OutputError(
+            f"{out_dir}: cannot write the review's files there ({exc.strerror or exc}); "
+            "pass --out with a folder you can write to"
+        ) from None

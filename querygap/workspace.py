@@ -66,6 +66,8 @@ def connect(
             f"{target} is not a querygap workspace: {str(exc).splitlines()[0]}"
         ) from None
     conn.execute("SET TimeZone = 'UTC'")
+    # DuckDB draws a progress bar on stdout during long statements, which would corrupt --json.
+    conn.execute("SET enable_progress_bar = false")
     if not read_only:
         migrate(conn, target)
     return conn

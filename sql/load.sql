@@ -39,13 +39,21 @@ WITH parsed AS (
                 THEN to_timestamp(try_cast(trim(ts_raw) AS DOUBLE) / 1000.0)
             ELSE try_cast(trim(ts_raw) AS TIMESTAMPTZ)
         END AS searched_at,
-        CASE lower(trim(results_raw))
-            WHEN 'true' THEN 1 WHEN 'false' THEN 0 WHEN '' THEN NULL
-            ELSE try_cast(trim(results_raw) AS BIGINT)
+        CASE
+            WHEN lower(trim(results_raw)) = 'true' THEN 1
+            WHEN lower(trim(results_raw)) = 'false' THEN 0
+            WHEN trim(results_raw) = '' THEN NULL
+            -- whole numbers only: a cast would round 1.5 to 2 (3.0 is read as 3)
+            WHEN regexp_full_match(trim(results_raw), '[+-]?[0-9]+(\.0*)?')
+                THEN try_cast(regexp_replace(trim(results_raw), '\.0*$', '') AS BIGINT)
         END AS results,
-        CASE lower(trim(clicks_raw))
-            WHEN 'true' THEN 1 WHEN 'false' THEN 0 WHEN '' THEN NULL
-            ELSE try_cast(trim(clicks_raw) AS BIGINT)
+        CASE
+            WHEN lower(trim(clicks_raw)) = 'true' THEN 1
+            WHEN lower(trim(clicks_raw)) = 'false' THEN 0
+            WHEN trim(clicks_raw) = '' THEN NULL
+            -- whole numbers only: a cast would round 1.5 to 2 (3.0 is read as 3)
+            WHEN regexp_full_match(trim(clicks_raw), '[+-]?[0-9]+(\.0*)?')
+                THEN try_cast(regexp_replace(trim(clicks_raw), '\.0*$', '') AS BIGINT)
         END AS clicks
     FROM stage_raw
 )
