@@ -7,6 +7,7 @@ and an older release refuses a workspace made by a newer one.
 
 from __future__ import annotations
 
+import os
 import re
 from collections.abc import Iterator, Mapping
 from contextlib import contextmanager
@@ -22,6 +23,14 @@ from querygap.sqlfiles import SQL_DIR, statement
 DEFAULT_WORKSPACE = Path("querygap.duckdb")
 SCHEMA_DIR = SQL_DIR / "schema"
 _SCRIPT = re.compile(r"^(\d{3})_[a-z0-9_]+\.sql$")
+
+
+def memory_limit() -> str:
+    """DuckDB's memory limit for a workspace connection: QUERYGAP_MEMORY_LIMIT or 1.5 GB."""
+    value = os.environ.get("QUERYGAP_MEMORY_LIMIT", "1.5GB").strip()
+    if not re.fullmatch(r"\d+(\.\d+)?\s*(KB|MB|GB|TB|KiB|MiB|GiB|TiB)", value, re.I):
+        raise SchemaError(f"QUERYGAP_MEMORY_LIMIT must be a size such as 2GB; got {value!r}")
+    return value
 
 
 def schema_scripts(schema_dir: Path = SCHEMA_DIR) -> list[tuple[int, Path]]:
@@ -66,6 +75,12 @@ def connect(
             f"{target} is not a querygap workspace: {str(exc).splitlines()[0]}"
         ) from None
     conn.execute("SET TimeZone = 'UTC'")
+    # Bound memory: DuckDB spills staging tables and sorts to disk beyond this limit, so a log many
+    # times larger than RAM still loads. QUERYGAP_MEMORY_LIMIT overrides (a DuckDB size, "4GB").
+    conn.execute(f"SET memory_limit = '{memory_limit()}'")
+    if target != ":memory:":
+        spill = Path(target).resolve().parent / (Path(target).name + ".tmp")
+        conn.execute(f"SET temp_directory = '{str(spill).replace(chr(39), chr(39) * 2)}'")
     # DuckDB draws a progress bar on stdout during long statements, which would corrupt --json.
     conn.execute("SET enable_progress_bar = false")
     if not read_only:
