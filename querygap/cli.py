@@ -37,7 +37,9 @@ app = typer.Typer(
     add_completion=False,
     pretty_exceptions_enable=False,
 )
-stdout = Console(highlight=False, soft_wrap=False, width=max(shutil.get_terminal_size((120, 40)).columns, 100))
+stdout = Console(
+    highlight=False, soft_wrap=False, width=max(shutil.get_terminal_size((120, 40)).columns, 100)
+)
 stderr = Console(stderr=True, highlight=False)
 
 F = TypeVar("F", bound=Callable[..., Any])
