@@ -604,3 +604,26 @@ def fill_simple_sessions(
             {"gap_minutes": gap_minutes, "bot_searches": bot_searches, "bot_seconds": bot_seconds},
         )
     return True
+
+
+def top_fixes(proposals: pd.DataFrame, n: int = 5) -> list[dict[str, object]]:
+    """The ``n`` best fixes (rank 1, not gaps) by rescued searches, for the terminal summary."""
+    top = proposals[(proposals["rank"] == 1) & (proposals["kind"] != "content_gap")]
+    top = top.sort_values(["rescued", "searches", "term"], ascending=[False, False, True]).head(n)
+    cols = ["kind", "term", "suggestion", "searches", "rescued", "confidence"]
+    return [
+        {k: (v.item() if hasattr(v, "item") else v) for k, v in r.items()}
+        for r in top[cols].to_dict("records")
+    ]
+
+
+def awaiting_check(
+    conn: duckdb.DuckDBPyConnection, review_id: str, index_id: str
+) -> list[dict[str, object]]:
+    """Accepted decisions of earlier reviews, with this review's searches of their term."""
+    found = frame(conn, "propose_awaiting_check", {"review_id": review_id, "index_id": index_id})
+    found["decided_at"] = found["decided_at"].astype(str)
+    return [
+        {k: (v.item() if hasattr(v, "item") else v) for k, v in r.items()}
+        for r in found.to_dict("records")
+    ]

@@ -112,18 +112,34 @@ DELETE FROM proposal_examples WHERE review_id = $review_id;
 DELETE FROM proposals WHERE review_id = $review_id;
 
 -- name: propose_gap_pages
--- The pages that come closest for a set of queries: summed score weighted by searches.
--- Reads query_top_pages, review_queries, documents, gap_queries_df (registered by the caller).
+-- For each content-gap proposal, the pages that come closest for its example queries: score
+-- summed over the queries, weighted by searches. Reads proposals, proposal_examples,
+-- review_queries, query_top_pages, documents.
 -- $review_id: the review
 -- $index_id: the index the review scored against
-SELECT g.proposal_id, p.doc_id, coalesce(d.title, '') AS title, coalesce(d.url, p.doc_id) AS url,
-       sum(p.score * r.searches) AS weight
-FROM gap_queries_df g
-JOIN review_queries r ON r.review_id = $review_id AND r.query = g.query
-JOIN query_top_pages p ON p.index_id = $index_id AND p.query = g.query
+SELECT e.proposal_id, p.doc_id, coalesce(d.title, '') AS title, coalesce(d.url, p.doc_id) AS url,
+       sum(p.score * e.searches) AS weight
+FROM proposals g
+JOIN proposal_examples e ON e.review_id = g.review_id AND e.proposal_id = g.proposal_id
+JOIN query_top_pages p ON p.index_id = $index_id AND p.query = e.query
 LEFT JOIN documents d ON d.doc_id = p.doc_id
+WHERE g.review_id = $review_id AND g.kind = 'content_gap'
 GROUP BY ALL
-ORDER BY g.proposal_id, weight DESC, p.doc_id;
+ORDER BY e.proposal_id, weight DESC, p.doc_id;
+
+-- name: propose_list
+-- The stored proposals of a review, fixes first (most rescued), then gaps (most searched).
+-- $review_id: the review
+SELECT * FROM proposals WHERE review_id = $review_id ORDER BY proposal_id;
+
+-- name: propose_example_texts
+-- The example queries of a review's proposals, with the text visitors typed most for each.
+-- $review_id: the review
+SELECT e.proposal_id, e.query, e.other_query, e.searches, coalesce(r.example, e.query) AS example
+FROM proposal_examples e
+LEFT JOIN review_queries r ON r.review_id = e.review_id AND r.query = e.query
+WHERE e.review_id = $review_id
+ORDER BY e.proposal_id, e.searches DESC, e.query;
 
 -- name: decide_upsert
 -- Store one decision, replacing an earlier one on the same rule. Writes decisions.
