@@ -145,7 +145,7 @@ def rewrite(sequences: pd.DataFrame, candidates: pd.DataFrame) -> pd.DataFrame:
     seq["next"] = seq["term"].shift(-1).where(seq["row"].eq(seq["row"].shift(-1)), "")
     cand = candidates[["cand", "term", "suggestion"]].copy()
     parts = cand["term"].str.split(" ", n=1, expand=True).reindex(columns=[0, 1])
-    cand["first"], cand["second"] = parts[0], parts[1].fillna("")
+    cand["first"], cand["second"] = parts[0], parts[1].astype(object).fillna("")
     hits = seq.merge(cand, left_on="term", right_on="first", suffixes=("", "_c"))
     hits = hits[(hits["second"] == "") | (hits["second"] == hits["next"])]
     pairs = hits[["cand", "row"]].drop_duplicates()
