@@ -13,9 +13,9 @@ from typing import Any
 from querygap.errors import InputError
 from querygap.logload import LoadOptions, load_log
 from querygap.pageload import ContentOptions, load_content
-from querygap.proposals import fill_simple_sessions
 from querygap.review import ReviewResult, failing_queries, run_review
 from querygap.settings import ReviewSettings
+from querygap.simple_sessions import fill_simple_sessions
 from querygap.windows import iso_week
 from querygap.workspace import connect
 

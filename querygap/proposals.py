@@ -585,27 +585,6 @@ def _examples(
     return found[cols].reset_index(drop=True)
 
 
-def fill_simple_sessions(
-    conn: duckdb.DuckDBPyConnection,
-    gap_minutes: float = 30.0,
-    bot_searches: int = 30,
-    bot_seconds: float = 5.0,
-) -> bool:
-    """Fill search_sessions with 30-minute sessions per user when nothing else has filled it.
-
-    Returns whether it filled the table. See sql/propose.sql ``sessions_fill_simple``.
-    """
-    if run(conn, "sessions_count").fetchall()[0][0]:  # type: ignore[index]
-        return False
-    with transaction(conn):
-        run(
-            conn,
-            "sessions_fill_simple",
-            {"gap_minutes": gap_minutes, "bot_searches": bot_searches, "bot_seconds": bot_seconds},
-        )
-    return True
-
-
 def top_fixes(proposals: pd.DataFrame, n: int = 5) -> list[dict[str, object]]:
     """The ``n`` best fixes (rank 1, not gaps) by rescued searches, for the terminal summary."""
     top = proposals[(proposals["rank"] == 1) & (proposals["kind"] != "content_gap")]

@@ -22,9 +22,10 @@ from querygap.logload import LoadOptions, load_log
 from querygap.nearmiss import edit_distance, stems
 from querygap.pageload import ContentOptions, load_content
 from querygap.proposal_files import md_text
-from querygap.proposals import fill_simple_sessions, propose, rewrite
+from querygap.proposals import propose, rewrite
 from querygap.review import run_review
 from querygap.settings import ReviewSettings
+from querygap.simple_sessions import fill_simple_sessions
 from querygap.windows import iso_week
 from querygap.workspace import connect
 
