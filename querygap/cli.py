@@ -37,7 +37,9 @@ app = typer.Typer(
     add_completion=False,
     pretty_exceptions_enable=False,
 )
-stdout = Console(highlight=False, soft_wrap=False, width=max(shutil.get_terminal_size((120, 40)).columns, 100))
+stdout = Console(
+    highlight=False, soft_wrap=False, width=max(shutil.get_terminal_size((120, 40)).columns, 100)
+)
 stderr = Console(stderr=True, highlight=False)
 
 F = TypeVar("F", bound=Callable[..., Any])
@@ -202,6 +204,12 @@ def print_review(result: ReviewResult, rows: list[dict[str, Any]], out_dir: Path
     if rows:
         stdout.print(out.failing_table(rows))
     stdout.print(f"Failing queries: {result.failing_csv}", markup=False)
+    if result.fixes:
+        stdout.print(out.fixes_table(result.fixes))
+    if result.awaiting:
+        stdout.print(out.awaiting_table(result.awaiting))
+    for name, path in result.proposal_files.items():
+        stdout.print(f"{name.replace('_', ' ').capitalize()}: {path}", markup=False)
     took = ", ".join(f"{k} {v:.1f}s" for k, v in result.timings.items())
     stdout.print(
         f"Index {result.index_id} ({'reused' if result.index_reused else 'built'}); "
@@ -300,6 +308,43 @@ def demo(
         out.emit_json(stdout, out.review_payload(result))
     else:
         print_review(result, rows, out_dir / result.review_id)
+
+
+@app.command("decide")
+@reports_errors
+def decide(
+    db: DbOpt = DEFAULT_WORKSPACE,
+    kind: Annotated[
+        str | None, typer.Option(help="spelling, synonym, variant or content_gap.")
+    ] = None,
+    term: Annotated[str | None, typer.Option(help="The term, as in proposals.csv.")] = None,
+    suggestion: Annotated[str, typer.Option(help="The suggestion ('' for a content gap).")] = "",
+    status: Annotated[str | None, typer.Option(help="accepted, rejected or parked.")] = None,
+    direction: Annotated[str, typer.Option(help="one-way or both-ways.")] = "one-way",
+    note: Annotated[str, typer.Option(help="Why (kept with the decision).")] = "",
+    rules: Annotated[
+        Path | None,
+        typer.Option(
+            "--rules", help="An edited rules.csv: store every row whose status is not 'proposed'."
+        ),
+    ] = None,
+) -> None:
+    """Accept, reject or park a proposal (rejected ones are not proposed again).
+
+    Example: querygap decide --kind spelling --term recieve --suggestion receive --status accepted
+    """
+    from querygap.decisions import Decision, check_decision, read_rules, store_decisions
+
+    if rules is not None and (kind or term or status):
+        raise ConfigError("give either --rules or --kind/--term/--status, not both")
+    if rules is not None:
+        decisions = read_rules(rules)
+    elif kind and term and status:
+        decisions = [check_decision(Decision(kind, term, suggestion, status, direction, note))]
+    else:
+        raise ConfigError("give --kind, --term and --status (and --suggestion), or --rules FILE")
+    stored = store_decisions(connect(db), decisions)
+    stdout.print(f"{stored} decision{'s' if stored != 1 else ''} stored.", markup=False)
 
 
 @app.command("version")

@@ -110,3 +110,46 @@ def failing_table(rows: list[dict[str, Any]], limit: int = 10) -> Table:
             Text(str(row["unmatched_terms"])),
         )
     return table
+
+
+def fixes_table(fixes: list[dict[str, Any]]) -> Table:
+    """The top fixes of a review with the searches each rescued when re-scored."""
+    table = Table(title="Top fixes (searches rescued when re-scored)", title_justify="left")
+    for col in ("kind", "term", "suggestion", "searches", "rescued", "confidence"):
+        table.add_column(
+            col, justify="right" if col in ("searches", "rescued", "confidence") else "left"
+        )
+    for f in fixes:
+        table.add_row(
+            f["kind"],
+            Text(str(f["term"])),
+            Text(str(f["suggestion"])),
+            f"{f['searches']:,}",
+            f"{f['rescued']:,}",
+            f"{f['confidence']:.2f}",
+        )
+    return table
+
+
+def awaiting_table(rows: list[dict[str, Any]]) -> Table:
+    """Accepted decisions that still await a check, with this review's failing searches."""
+    table = Table(title="Accepted fixes awaiting a check", title_justify="left")
+    for col in (
+        "kind",
+        "term",
+        "replacement",
+        "decided in",
+        "failing searches now",
+        "searches now",
+    ):
+        table.add_column(col, justify="right" if "searches" in col else "left")
+    for r in rows:
+        table.add_row(
+            r["kind"],
+            Text(str(r["term"])),
+            Text(str(r["replacement"])),
+            str(r["decided_in"] or "-"),
+            f"{r['failing_searches']:,}",
+            f"{r['searches']:,}",
+        )
+    return table

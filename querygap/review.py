@@ -2,7 +2,7 @@
 
 Stages and their tables: index (terms, doc_rows, doc_terms) -> score (query_scores,
 query_top_pages, query_terms; only queries not yet scored against this index) -> flag
-(reviews, review_queries).
+(reviews, review_queries) -> propose (proposals, proposal_examples; see querygap.proposals).
 """
 
 from __future__ import annotations
@@ -18,6 +18,8 @@ import pandas as pd
 
 from querygap.errors import OutputError, StageOrderError
 from querygap.indexing import build_index, load_index
+from querygap.proposal_files import write_proposal_files
+from querygap.proposals import awaiting_check, propose, top_fixes
 from querygap.safe_csv import write_csv
 from querygap.scoring import score_queries, store_scores
 from querygap.settings import ReviewSettings, validate
@@ -58,6 +60,9 @@ class ReviewResult:
     failing_csv: Path | None = None
     report_html: Path | None = None
     timings: dict[str, float] = field(default_factory=dict)
+    fixes: list[dict[str, object]] = field(default_factory=list)  # top fixes, most rescued first
+    awaiting: list[dict[str, object]] = field(default_factory=list)  # accepted, not yet checked
+    proposal_files: dict[str, Path] = field(default_factory=dict)
 
     def rate(self, status: str, per: str = "searches") -> float:
         total = self.searches if per == "searches" else self.queries
@@ -125,11 +130,18 @@ def run_review(
     timings["flag"] = time.perf_counter() - t0
     result = summarize(conn, window, index_id, reused, len(todo))
     result.timings = timings
+    t0 = time.perf_counter()
+    say("propose")
+    proposed = propose(conn, window.review_id)
+    result.fixes = top_fixes(proposed.proposals)
+    result.awaiting = awaiting_check(conn, window.review_id, index_id)
+    timings["propose"] = time.perf_counter() - t0
     if out_dir is not None:
         from querygap.report import write_report  # the report reads this module's exports
 
         t0 = time.perf_counter()
         result.failing_csv = export_failing(conn, window.review_id, index_id, out_dir)
+        result.proposal_files = write_proposal_files(conn, window.review_id, index_id, out_dir)
         timings["export"] = time.perf_counter() - t0
         t0 = time.perf_counter()
         say("report")

@@ -1,0 +1,225 @@
+"""Near-miss candidates for terms the content lacks: spelling, variant forms, reformulations.
+
+Pure computation on arrays and frames; the proposal stage (:mod:`querygap.proposals`) reads the
+tables and decides what to propose.
+
+Spelling distance is the restricted Damerau-Levenshtein distance (optimal string alignment): the
+fewest insertions, deletions, substitutions and transpositions of two adjacent letters, no
+substring edited twice (Damerau, CACM 7(3), 1964: one such edit covers most misspellings). The
+limit grows with the word's length: none below 3 letters, 1 edit for 3-5 letters, 2 for longer
+words (common practice, no source).
+"""
+
+from __future__ import annotations
+
+from collections.abc import Sequence
+from functools import cache
+
+import numpy as np
+import pandas as pd
+from rapidfuzz import process
+from rapidfuzz.distance import OSA, Indel
+
+from querygap.stats import signed_llr
+
+#: Longest word that still gets no spelling candidate, and the longest that gets only one edit.
+NO_EDITS_BELOW = 3
+ONE_EDIT_UP_TO = 5
+#: Shortest part of a split compound ("smartmeter" -> "smart meter").
+MIN_PART = 3
+
+
+def max_edits(lengths: np.ndarray) -> np.ndarray:
+    """Edits allowed for words of the given lengths: 0 (< 3 letters), 1 (3-5), 2 (6 or more)."""
+    lengths = np.asarray(lengths)
+    return np.where(lengths < NO_EDITS_BELOW, 0, np.where(lengths <= ONE_EDIT_UP_TO, 1, 2))
+
+
+def edit_distance(a: str, b: str) -> int:
+    """Restricted Damerau-Levenshtein distance (optimal string alignment) between two words."""
+    return int(OSA.distance(a, b))
+
+
+def spelling_candidates(
+    terms: Sequence[str], vocab: pd.DataFrame, chunk: int = 512, limit: int = 5
+) -> pd.DataFrame:
+    """Content terms within the allowed edit distance of each term, best first.
+
+    All terms are compared with the whole vocabulary at once (``rapidfuzz.process.cdist``, in
+    chunks of ``chunk`` terms, with a distance cut-off so far pairs cost little).
+
+    Parameters
+    ----------
+    terms : sequence of str
+        Terms to correct (unique or not; duplicates are dropped).
+    vocab : DataFrame
+        Columns ``term``, ``df`` (pages holding it) and ``ok_searches`` (searches of working
+        queries holding it).
+    limit : int, default=5
+        Candidates kept per term.
+
+    Returns
+    -------
+    DataFrame with columns term, suggestion, distance, allowed, df, ok_searches, rank; ranked per
+    term by distance (fewer first), the same first letter, ok_searches and df (more first), the
+    insertions + deletions between the two words (fewer first), then the suggestion.
+    """
+    columns = ["term", "suggestion", "distance", "allowed", "df", "ok_searches", "rank"]
+    words = pd.unique(pd.Series(list(terms), dtype=object))
+    words = words[pd.Series(words, dtype=object).str.fullmatch(r"[^\W\d_]+").to_numpy(bool)]
+    allowed = max_edits(np.fromiter((len(w) for w in words), np.int64, len(words)))
+    words, allowed = words[allowed > 0], allowed[allowed > 0]
+    choices = vocab["term"].to_numpy(object)
+    if not len(words) or not len(choices):
+        return pd.DataFrame({c: [] for c in columns})
+    parts = []
+    for start in range(0, len(words), chunk):
+        block = words[start : start + chunk]
+        dist = process.cdist(
+            block, choices, scorer=OSA.distance, score_cutoff=2, dtype=np.int8, workers=-1
+        )
+        ok = (dist <= allowed[start : start + chunk, None]) & (dist > 0)
+        r, c = np.nonzero(ok)
+        parts.append(
+            pd.DataFrame(
+                {
+                    "term": block[r],
+                    "suggestion": choices[c],
+                    "distance": dist[r, c].astype(np.int64),
+                    "allowed": allowed[start + r],
+                    "df": vocab["df"].to_numpy()[c],
+                    "ok_searches": vocab["ok_searches"].to_numpy()[c],
+                }
+            )
+        )
+    found = pd.concat(parts, ignore_index=True)
+    # Tie-breaks that need no data: typos seldom touch the first letter (from memory), and a
+    # candidate sharing more letters in order (fewer insertions + deletions) is closer.
+    found["first"] = found["term"].str[0] == found["suggestion"].str[0]
+    found["indel"] = process.cpdist(
+        found["term"].to_numpy(object), found["suggestion"].to_numpy(object), scorer=Indel.distance
+    )
+    found = found.sort_values(
+        ["term", "distance", "first", "ok_searches", "df", "indel", "suggestion"],
+        ascending=[True, True, False, False, False, True, True],
+        kind="mergesort",
+    )
+    found["rank"] = found.groupby("term").cumcount() + 1
+    return found[found["rank"] <= limit].reset_index(drop=True)[columns]
+
+
+@cache
+def _stemmer():  # type: ignore[no-untyped-def]
+    import snowballstemmer
+
+    return snowballstemmer.stemmer("english")
+
+
+def stems(words: np.ndarray) -> np.ndarray:
+    """Snowball English (Porter2) stems of many words in one call."""
+    return np.asarray(_stemmer().stemWords(list(words)), dtype=object)
+
+
+def variant_candidates(terms: Sequence[str], vocab: pd.DataFrame) -> pd.DataFrame:
+    """Variant forms the content uses: same Snowball stem (plural/singular and other endings), or
+    a compound split into two content terms of at least ``MIN_PART`` letters.
+
+    Returns
+    -------
+    DataFrame with columns term, suggestion, how ('same stem' or 'split'), df (of the suggestion,
+    the smaller part's for a split).
+    """
+    words = pd.unique(pd.Series(list(terms), dtype=object))
+    vocab_terms = vocab["term"].to_numpy(object)
+    df_of = pd.Series(vocab["df"].to_numpy(), index=vocab_terms)
+    empty = pd.DataFrame({"term": [], "suggestion": [], "how": [], "df": []})
+    if not len(words) or not len(vocab_terms):
+        return empty
+    by_stem = pd.DataFrame({"stem": stems(vocab_terms), "suggestion": vocab_terms})
+    mine = pd.DataFrame({"term": words, "stem": stems(words)})
+    same = mine.merge(by_stem, on="stem")
+    same = same[same["term"] != same["suggestion"]].assign(how="same stem")
+    same["df"] = df_of.reindex(same["suggestion"]).to_numpy()
+
+    alpha = pd.Series(words, dtype=object)
+    alpha = alpha[alpha.str.fullmatch(r"[^\W\d_]+")]
+    splits = []
+    known = pd.Index(vocab_terms)
+    for cut in range(MIN_PART, int(alpha.str.len().max() or 0) - MIN_PART + 1):
+        left, right = alpha.str[:cut], alpha.str[cut:]
+        ok = (known.get_indexer(left) >= 0) & (known.get_indexer(right) >= 0)
+        ok &= (right.str.len() >= MIN_PART).to_numpy()
+        if ok.any():
+            splits.append(
+                pd.DataFrame(
+                    {
+                        "term": alpha[ok].to_numpy(),
+                        "suggestion": (left[ok] + " " + right[ok]).to_numpy(),
+                        "how": "split",
+                        "df": np.minimum(
+                            df_of.reindex(left[ok]).to_numpy(), df_of.reindex(right[ok]).to_numpy()
+                        ),
+                    }
+                )
+            )
+    out = pd.concat([same[["term", "suggestion", "how", "df"]], *splits], ignore_index=True)
+    return out.sort_values(["term", "df", "suggestion"], ascending=[True, False, True]).reset_index(
+        drop=True
+    )
+
+
+def join_candidates(sequences: pd.DataFrame, vocab: pd.DataFrame) -> pd.DataFrame:
+    """Two adjacent query terms the content writes as one word ("wi fi" -> "wifi").
+
+    Parameters
+    ----------
+    sequences : DataFrame
+        Columns ``row`` and ``term``, one row per analyzed term in query order.
+
+    Returns
+    -------
+    DataFrame with columns term ('a b'), suggestion ('ab'), how ('join'), df.
+    """
+    seq = sequences.reset_index(drop=True)
+    nxt = seq["term"].shift(-1)
+    same_row = seq["row"].eq(seq["row"].shift(-1))
+    joined = (seq["term"] + nxt.fillna("")).where(same_row)
+    known = pd.Index(vocab["term"].to_numpy(object))
+    hit = same_row & (known.get_indexer(joined.fillna("")) >= 0)
+    out = pd.DataFrame(
+        {"term": (seq["term"] + " " + nxt)[hit], "suggestion": joined[hit], "how": "join"}
+    ).drop_duplicates()
+    df_of = pd.Series(vocab["df"].to_numpy(), index=known)
+    out["df"] = df_of.reindex(out["suggestion"]).to_numpy()
+    return out.reset_index(drop=True)
+
+
+def substitution_scores(subs: pd.DataFrame) -> pd.DataFrame:
+    """Dunning's G^2 of each term substitution seen in consecutive query pairs.
+
+    For the pairs of queries that differ in exactly one term (``term_from`` replaced by
+    ``term_to``, ``pairs`` times), the 2x2 table of a -> b is (Jones, Rey, Madani & Greiner,
+    WWW 2006, with Dunning, 1993)::
+
+        k11 = n(a -> b)              k12 = n(a -> not b)
+        k21 = n(not a -> b)          k22 = N - k11 - k12 - k21
+
+    with N all substitution pairs. ``g2`` is the signed G^2 (negative when a -> b is rarer than
+    chance).
+
+    Returns
+    -------
+    DataFrame with columns term_from, term_to, n_ab, n_a, n_b, total, g2.
+    """
+    pairs = subs.groupby(["term_from", "term_to"], as_index=False)["pairs"].sum()
+    pairs = pairs.rename(columns={"pairs": "n_ab"})
+    total = int(pairs["n_ab"].sum())
+    pairs["n_a"] = pairs.groupby("term_from")["n_ab"].transform("sum")
+    pairs["n_b"] = pairs.groupby("term_to")["n_ab"].transform("sum")
+    pairs["total"] = total
+    k11 = pairs["n_ab"].to_numpy(float)
+    k12 = pairs["n_a"].to_numpy(float) - k11
+    k21 = pairs["n_b"].to_numpy(float) - k11
+    k22 = total - k11 - k12 - k21
+    pairs["g2"] = signed_llr(k11, k12, k21, k22) if len(pairs) else np.empty(0)
+    return pairs

@@ -1,0 +1,206 @@
+-- Proposal stage: near-miss terms of a review's failing queries -> proposals, proposal_examples.
+
+-- name: propose_review
+-- The review's index and settings (the thresholds re-scoring uses).
+-- $review_id: the review
+SELECT review_id, index_id, settings, window_start, window_end FROM reviews WHERE review_id = $review_id;
+
+-- name: propose_failing_terms
+-- Every unmatched term of every failing query: unknown to the content (df = 0) or missing from the
+-- query's best page. Reads review_queries, query_terms.
+-- $review_id: the review
+-- $index_id: the index the review scored against
+SELECT r.query, r.example, r.searches, r.status, t.term, t.df, t.position
+FROM review_queries r
+JOIN query_terms t ON t.index_id = $index_id AND t.query = r.query
+WHERE r.review_id = $review_id AND r.status <> 'ok' AND (t.df = 0 OR NOT t.in_best)
+ORDER BY r.query, t.position;
+
+-- name: propose_vocabulary
+-- The content's terms with df, cf and the searches of the review's ok queries holding each term.
+-- $review_id: the review
+-- $index_id: the current index
+SELECT v.term, v.df, v.cf, coalesce(o.ok_searches, 0)::BIGINT AS ok_searches
+FROM terms v
+LEFT JOIN (
+    SELECT t.term, sum(r.searches) AS ok_searches
+    FROM review_queries r JOIN query_terms t ON t.index_id = $index_id AND t.query = r.query
+    WHERE r.review_id = $review_id AND r.status = 'ok'
+    GROUP BY t.term
+) o ON o.term = v.term
+WHERE v.index_id = $index_id
+ORDER BY v.term_id;
+
+-- name: propose_substitutions
+-- Consecutive searches of one session (bots excluded) at most $max_gap_seconds apart whose queries
+-- differ in exactly one term: (term_from -> term_to), with the pair's count and both statuses.
+-- Reads searches, search_sessions, query_terms, review_queries.
+-- $review_id: the review
+-- $index_id: the index the review scored against
+-- $start: window start (inclusive)
+-- $end: window end (exclusive)
+-- $max_gap_seconds: longest gap between the two searches
+WITH s AS (
+    SELECT x.searched_at, x.query, ss.session_id
+    FROM searches x JOIN search_sessions ss ON ss.file_id = x.file_id AND ss.line = x.line
+    WHERE NOT ss.is_bot AND x.searched_at >= $start AND x.searched_at < $end
+), seq AS (
+    SELECT query, searched_at,
+           lead(query) OVER w AS next_query, lead(searched_at) OVER w AS next_at
+    FROM s WINDOW w AS (PARTITION BY session_id ORDER BY searched_at, query)
+), p AS (
+    SELECT query, next_query, count(*) AS pairs FROM seq
+    WHERE next_query IS NOT NULL AND next_query <> query
+      AND epoch(next_at) - epoch(searched_at) <= $max_gap_seconds
+    GROUP BY query, next_query
+), a_only AS (
+    SELECT p.query, p.next_query, t.term FROM p
+    JOIN query_terms t ON t.index_id = $index_id AND t.query = p.query
+    ANTI JOIN query_terms u ON u.index_id = $index_id AND u.query = p.next_query AND u.term = t.term
+), b_only AS (
+    SELECT p.query, p.next_query, t.term FROM p
+    JOIN query_terms t ON t.index_id = $index_id AND t.query = p.next_query
+    ANTI JOIN query_terms u ON u.index_id = $index_id AND u.query = p.query AND u.term = t.term
+), a1 AS (
+    SELECT query, next_query, min(term) AS term FROM a_only GROUP BY ALL HAVING count(*) = 1
+), b1 AS (
+    SELECT query, next_query, min(term) AS term FROM b_only GROUP BY ALL HAVING count(*) = 1
+)
+SELECT a1.query, a1.next_query, a1.term AS term_from, b1.term AS term_to, p.pairs,
+       coalesce(r1.status, '') AS status_from, coalesce(r2.status, '') AS status_to
+FROM a1
+JOIN b1 ON b1.query = a1.query AND b1.next_query = a1.next_query
+JOIN p ON p.query = a1.query AND p.next_query = a1.next_query
+LEFT JOIN review_queries r1 ON r1.review_id = $review_id AND r1.query = a1.query
+LEFT JOIN review_queries r2 ON r2.review_id = $review_id AND r2.query = a1.next_query
+ORDER BY a1.query, a1.next_query;
+
+-- name: propose_contexts
+-- Shared query contexts: an unmatched term of a failing query and a content term of an ok query
+-- whose other terms are the same ("pay invoice" / "pay bill" share the context "pay").
+-- Reads review_queries, query_terms.
+-- $review_id: the review
+-- $index_id: the index the review scored against
+WITH qt AS (
+    SELECT r.query, r.status, r.searches, t.term, t.df, t.in_best
+    FROM review_queries r JOIN query_terms t ON t.index_id = $index_id AND t.query = r.query
+    WHERE r.review_id = $review_id
+), ctx AS (
+    SELECT a.query, a.status, a.searches, a.term, a.df, a.in_best,
+           string_agg(b.term, ' ' ORDER BY b.term) AS context
+    FROM qt a JOIN qt b ON b.query = a.query AND b.term <> a.term
+    GROUP BY a.query, a.status, a.searches, a.term, a.df, a.in_best
+)
+SELECT f.term AS term_from, o.term AS term_to, count(DISTINCT f.context) AS contexts,
+       min(f.query) AS query, min(o.query) AS other_query, sum(o.searches)::BIGINT AS other_searches
+FROM ctx f JOIN ctx o ON o.context = f.context AND o.term <> f.term
+WHERE f.status <> 'ok' AND (f.df = 0 OR NOT f.in_best) AND o.status = 'ok' AND o.df > 0
+GROUP BY f.term, o.term
+ORDER BY f.term, o.term;
+
+-- name: propose_decisions
+-- Every stored decision (a rejected one is never proposed again).
+SELECT kind, term, replacement, direction, decision, review_id, decided_at, note FROM decisions;
+
+-- name: propose_clear_examples
+-- Forget an earlier run of the review's proposals (reruns replace, never add).
+-- $review_id: the review
+DELETE FROM proposal_examples WHERE review_id = $review_id;
+
+-- name: propose_clear
+-- $review_id: the review
+DELETE FROM proposals WHERE review_id = $review_id;
+
+-- name: propose_gap_pages
+-- For each content-gap proposal, the pages that come closest for its example queries: score
+-- summed over the queries, weighted by searches. Reads proposals, proposal_examples,
+-- review_queries, query_top_pages, documents.
+-- $review_id: the review
+-- $index_id: the index the review scored against
+SELECT e.proposal_id, p.doc_id, coalesce(d.title, '') AS title, coalesce(d.url, p.doc_id) AS url,
+       sum(p.score * e.searches) AS weight
+FROM proposals g
+JOIN proposal_examples e ON e.review_id = g.review_id AND e.proposal_id = g.proposal_id
+JOIN query_top_pages p ON p.index_id = $index_id AND p.query = e.query
+LEFT JOIN documents d ON d.doc_id = p.doc_id
+WHERE g.review_id = $review_id AND g.kind = 'content_gap'
+GROUP BY ALL
+ORDER BY e.proposal_id, weight DESC, p.doc_id;
+
+-- name: propose_list
+-- The stored proposals of a review, fixes first (most rescued), then gaps (most searched).
+-- $review_id: the review
+SELECT * FROM proposals WHERE review_id = $review_id ORDER BY proposal_id;
+
+-- name: propose_example_texts
+-- The example queries of a review's proposals, with the text visitors typed most for each.
+-- $review_id: the review
+SELECT e.proposal_id, e.query, e.other_query, e.searches, coalesce(r.example, e.query) AS example
+FROM proposal_examples e
+LEFT JOIN review_queries r ON r.review_id = e.review_id AND r.query = e.query
+WHERE e.review_id = $review_id
+ORDER BY e.proposal_id, e.searches DESC, e.query;
+
+-- name: decide_upsert
+-- Store one decision, replacing an earlier one on the same rule. Writes decisions.
+-- $kind: spelling, synonym, variant or content_gap
+-- $term: the term as the analyzer sees it
+-- $replacement: the suggestion ('' for content gaps)
+-- $direction: one-way or both-ways
+-- $decision: accepted, rejected or parked
+-- $review_id: the review the proposal came from, or NULL
+-- $note: free text
+INSERT OR REPLACE INTO decisions
+VALUES ($kind, $term, $replacement, $direction, $decision, $review_id, now(), $note);
+
+-- name: decide_find_proposal
+-- The newest review that proposed a rule, with its searches and rescued figures.
+-- $kind: the proposal's kind
+-- $term: the term
+-- $suggestion: the suggestion
+SELECT p.review_id, p.searches, p.rescued FROM proposals p JOIN reviews r USING (review_id)
+WHERE p.kind = $kind AND p.term = $term AND p.suggestion = $suggestion
+ORDER BY r.window_start DESC;
+
+-- name: propose_awaiting_check
+-- Accepted decisions made before this review, with this review's searches of the term in failing
+-- queries (a fix that worked should bring them down). Reads decisions, review_queries, query_terms.
+-- $review_id: the review
+-- $index_id: the index the review scored against
+SELECT d.kind, d.term, d.replacement, d.review_id AS decided_in, d.decided_at,
+       coalesce(sum(r.searches) FILTER (WHERE r.status <> 'ok'), 0)::BIGINT AS failing_searches,
+       coalesce(sum(r.searches), 0)::BIGINT AS searches
+FROM decisions d
+LEFT JOIN query_terms t ON t.index_id = $index_id AND t.term = d.term
+LEFT JOIN review_queries r ON r.review_id = $review_id AND r.query = t.query
+WHERE d.decision = 'accepted' AND coalesce(d.review_id, '') <> $review_id
+GROUP BY ALL
+ORDER BY failing_searches DESC, d.term;
+
+-- name: sessions_fill_simple
+-- A stand-in for the session stage when search_sessions is empty: searches of one user (or
+-- session key) with gaps under $gap_minutes minutes form a session (30 min: Catledge & Pitkow,
+-- 1995); a session of at least $bot_searches searches whose median gap is under $bot_seconds
+-- seconds is marked as a bot (common practice, no source). Writes search_sessions.
+-- $gap_minutes: inactivity that ends a session
+-- $bot_searches: searches a session needs before it can be a bot
+-- $bot_seconds: median gap below which such a session is a bot
+INSERT INTO search_sessions
+WITH s AS (
+    SELECT file_id, line, searched_at, coalesce(user_key, session_key, 'row' || file_id || ':' || line) AS who,
+           epoch(searched_at) - epoch(lag(searched_at) OVER (PARTITION BY coalesce(user_key, session_key, 'row' || file_id || ':' || line) ORDER BY searched_at, file_id, line)) AS gap
+    FROM searches
+), n AS (
+    SELECT *, sum(CASE WHEN gap IS NULL OR gap > $gap_minutes * 60 THEN 1 ELSE 0 END)
+                  OVER (PARTITION BY who ORDER BY searched_at, file_id, line) AS k
+    FROM s
+), b AS (
+    SELECT who, k, count(*) >= $bot_searches AND coalesce(median(gap) FILTER (WHERE gap <= $gap_minutes * 60), 1e9) < $bot_seconds AS is_bot
+    FROM n GROUP BY who, k
+)
+SELECT n.file_id, n.line, n.who || '#' || n.k, b.is_bot
+FROM n JOIN b ON b.who = n.who AND b.k = n.k;
+
+-- name: sessions_count
+-- Rows of search_sessions.
+SELECT count(*) FROM search_sessions;
