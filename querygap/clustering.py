@@ -20,13 +20,12 @@ comparison of every query with every other:
    not used (it is a short string, shared by words that are no typos of one another).
 3. **Similar text.** Character 3-grams within words (scikit-learn ``TfidfVectorizer``,
    ``analyzer='char_wb'``) weighted by tf-idf, rows of unit length, so a dot product is the cosine;
-   pairs with cosine >= ``min_cosine`` are joined. Word order does not change these grams, so
-   "fill swimming pool" meets "swimming pool fill". All pairs above the threshold are found with
-   prefix filtering (Bayardo, Ma & Srikant, WWW 2007, from memory): with the grams of every row
-   ordered rarest first, a row's prefix is its grams up to the point where the rest has norm below
-   ``min_cosine``. Since x . y <= ||rest of x|| when y shares no gram with x's prefix, only pairs
-   where y has a gram of x's prefix can reach the threshold; rare grams have short posting lists,
-   so the candidates number far fewer than n^2 / 2.
+   pairs with cosine >= ``min_cosine`` are joined if they also agree on their key terms (see
+   :func:`consistent_pairs`). Word order does not change these grams, so "water meter reading"
+   meets "reading water meter". A gram found in more than ``gram_cap`` failing queries is left
+   out (it belongs to words many queries share; the similarity is then the cosine over the
+   remaining grams). Every gram then pairs at most ``gram_cap`` queries, so the pairs computed
+   are at most gram_cap x (non-zeros of the gram matrix): linear in n, instead of n^2 / 2.
 """
 
 from __future__ import annotations
@@ -63,13 +62,18 @@ class ClusterSettings:
         and "water meter" do not).
     max_block : int, default=50
         Largest group of key terms sharing one deletion string that is compared pairwise.
-    chunk_rows : int, default=4096
-        Rows per block when candidate pairs are generated and verified (bounds memory).
+    gram_cap : int, default=100
+        A 3-gram found in more than this many failing queries is left out of the similarity: it
+        comes from words common to many queries, and without a cap the pairs sharing it grow as
+        n^2 (common practice, no source; 100 keeps every gram of the demo's rarer words).
+    chunk_rows : int, default=1024
+        Rows per block of the similarity product (bounds memory).
     """
 
     min_cosine: float = 0.7
     max_block: int = 50
-    chunk_rows: int = 4096
+    gram_cap: int = 100
+    chunk_rows: int = 1024
 
 
 def validate_clusters(settings: ClusterSettings) -> ClusterSettings:
@@ -77,8 +81,8 @@ def validate_clusters(settings: ClusterSettings) -> ClusterSettings:
         raise ConfigError(
             f"--cluster-cosine must be above 0 and at most 1; got {settings.min_cosine}"
         )
-    if settings.max_block < 2 or settings.chunk_rows < 1:
-        raise ConfigError("max_block must be at least 2 and chunk_rows at least 1")
+    if settings.max_block < 2 or settings.chunk_rows < 1 or settings.gram_cap < 2:
+        raise ConfigError("max_block and gram_cap must be at least 2 and chunk_rows at least 1")
     return settings
 
 
@@ -222,61 +226,46 @@ def nearest_words(
     return best, examined
 
 
-def gram_matrix(texts: list[str]) -> sparse.csr_matrix:
-    """Unit-length tf-idf rows of character 3-grams within words (scikit-learn ``char_wb``)."""
-    vec = TfidfVectorizer(analyzer="char_wb", ngram_range=(3, 3), lowercase=False, dtype=np.float64)
-    return vec.fit_transform(texts).tocsr()
+def gram_matrix(texts: list[str], max_df: int) -> sparse.csr_matrix:
+    """Unit-length tf-idf rows of character 3-grams within words (scikit-learn ``char_wb``).
+
+    Grams found in more than ``max_df`` texts are dropped before the rows are normalised
+    (scikit-learn's ``max_df`` as a count). A row left with no gram is all zero.
+    """
+    vec = TfidfVectorizer(
+        analyzer="char_wb", ngram_range=(3, 3), lowercase=False, max_df=max_df, dtype=np.float64
+    )
+    try:
+        return vec.fit_transform(texts).tocsr()
+    except ValueError:  # no gram at all, or none left after the cap
+        return sparse.csr_matrix((len(texts), 0))
 
 
 def similar_pairs(
     x: sparse.csr_matrix, min_cosine: float, chunk_rows: int
 ) -> tuple[np.ndarray, np.ndarray, int]:
-    """All pairs (i, j), i < j, of unit rows with x_i . x_j >= ``min_cosine`` (prefix filtering).
+    """All pairs (i, j), i < j, of rows with x_i . x_j >= ``min_cosine``.
 
-    Returns the pairs and the number of candidate pairs whose cosine was computed.
+    Blocks of rows are multiplied with the whole matrix; only pairs sharing a gram are produced, so
+    with every gram in at most ``max_df`` rows the work is at most ``max_df`` times the non-zeros
+    of ``x``. Returns the pairs and the number of pairs whose cosine was computed.
     """
     n = x.shape[0]
     empty = np.empty(0, np.int64)
     if n < 2 or x.nnz == 0:
         return empty, empty, 0
-    df = np.bincount(x.indices, minlength=x.shape[1])
-    # Columns rarest first (ties by column), so each row's CSR entries run from rare to common.
-    order = np.lexsort((np.arange(x.shape[1]), df))
-    rank = np.empty_like(order)
-    rank[order] = np.arange(len(order))
-    x = sparse.csr_matrix((x.data, rank[x.indices], x.indptr), shape=x.shape)
-    x.sort_indices()
-    # Suffix mass of each entry: the squared weights of it and of every later entry in its row.
-    sq = x.data**2
-    row = np.repeat(np.arange(n), np.diff(x.indptr))
-    csum = np.cumsum(sq)
-    row_end = csum[x.indptr[1:] - 1]
-    before = np.concatenate(([0.0], csum[:-1]))
-    row_start = before[x.indptr[:-1]]
-    suffix = row_end[row] - (before - row_start[row])
-    in_prefix = suffix >= min_cosine**2 - 1e-12
-    prefix = sparse.csr_matrix((in_prefix.astype(np.float64), x.indices, x.indptr), shape=x.shape)
-    prefix.eliminate_zeros()
-    binary_t = sparse.csr_matrix((np.ones_like(x.data), x.indices, x.indptr), shape=x.shape).T
-    binary_t = binary_t.tocsr()
+    xt = x.T.tocsr()
     found_a, found_b, examined = [], [], 0
     for lo in range(0, n, chunk_rows):
-        hi = min(lo + chunk_rows, n)
-        cand = (prefix[lo:hi] @ binary_t).tocoo()
-        ci, cj = cand.row.astype(np.int64) + lo, cand.col.astype(np.int64)
-        keep = ci != cj
-        a, b = np.minimum(ci[keep], cj[keep]), np.maximum(ci[keep], cj[keep])
-        examined += len(a)
-        if not len(a):
-            continue
-        cos = np.asarray(x[a].multiply(x[b]).sum(axis=1)).ravel()
-        hit = cos >= min_cosine - 1e-9
-        found_a.append(a[hit])
-        found_b.append(b[hit])
-    if not found_a:
-        return empty, empty, examined
-    pairs = np.unique(np.column_stack((np.concatenate(found_a), np.concatenate(found_b))), axis=0)
-    return pairs[:, 0], pairs[:, 1], examined
+        block = (x[lo : lo + chunk_rows] @ xt).tocoo()
+        i = block.row.astype(np.int64) + lo
+        j = block.col.astype(np.int64)
+        upper = i < j
+        examined += int(upper.sum())
+        hit = upper & (block.data >= min_cosine - 1e-9)
+        found_a.append(i[hit])
+        found_b.append(j[hit])
+    return np.concatenate(found_a), np.concatenate(found_b), examined
 
 
 def consistent_pairs(
@@ -347,8 +336,9 @@ def cluster_queries(
     pivot, pivot_examined = nearest_words(key_array, vocab, settings.max_block)
     with_pivot = np.flatnonzero(pivot >= 0)
     edges_c = _star_edges(rep[with_pivot], pivot[with_pivot])
+    max_df = settings.gram_cap
     ga, gb, gram_examined = similar_pairs(
-        gram_matrix(queries), settings.min_cosine, settings.chunk_rows
+        gram_matrix(queries, max_df), settings.min_cosine, settings.chunk_rows
     )
     agree = consistent_pairs(queries, keys, ga, gb)
     ga, gb = ga[agree], gb[agree]
@@ -372,6 +362,7 @@ def cluster_queries(
         "spelling_edges": len(sa),
         "word_candidates": pivot_examined,
         "typos_of_a_word": len(with_pivot),
+        "gram_cap": max_df,
         "text_candidates": gram_examined,
         "text_edges": len(ga),
     }
