@@ -337,9 +337,8 @@ def cluster_queries(
     with_pivot = np.flatnonzero(pivot >= 0)
     edges_c = _star_edges(rep[with_pivot], pivot[with_pivot])
     max_df = settings.gram_cap
-    ga, gb, gram_examined = similar_pairs(
-        gram_matrix(queries, max_df), settings.min_cosine, settings.chunk_rows
-    )
+    grams = gram_matrix(queries, max_df)
+    ga, gb, gram_examined = similar_pairs(grams, settings.min_cosine, settings.chunk_rows)
     agree = consistent_pairs(queries, keys, ga, gb)
     ga, gb = ga[agree], gb[agree]
     src = np.concatenate([edges_a[0], edges_b[0], edges_c[0], ga]).astype(np.int64)
@@ -363,6 +362,7 @@ def cluster_queries(
         "word_candidates": pivot_examined,
         "typos_of_a_word": len(with_pivot),
         "gram_cap": max_df,
+        "gram_nonzeros": grams.nnz,
         "text_candidates": gram_examined,
         "text_edges": len(ga),
     }
