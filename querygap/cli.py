@@ -201,8 +201,11 @@ def print_review(result: ReviewResult, rows: list[dict[str, Any]], out_dir: Path
     stdout.print(out.review_table(result))
     for line in out.engine_lines(result):
         stdout.print(line, markup=False)
+    stdout.print(out.bot_line(result), markup=False)
     if rows:
         stdout.print(out.failing_table(rows))
+    if result.clusters:
+        stdout.print(out.cluster_table(result.clusters))
     stdout.print(f"Failing queries: {result.failing_csv}", markup=False)
     if result.fixes:
         stdout.print(out.fixes_table(result.fixes))
@@ -210,6 +213,7 @@ def print_review(result: ReviewResult, rows: list[dict[str, Any]], out_dir: Path
         stdout.print(out.awaiting_table(result.awaiting))
     for name, path in result.proposal_files.items():
         stdout.print(f"{name.replace('_', ' ').capitalize()}: {path}", markup=False)
+    stdout.print(f"Clusters: {result.clusters_csv}", markup=False)
     took = ", ".join(f"{k} {v:.1f}s" for k, v in result.timings.items())
     stdout.print(
         f"Index {result.index_id} ({'reused' if result.index_reused else 'built'}); "

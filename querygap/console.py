@@ -153,3 +153,41 @@ def awaiting_table(rows: list[dict[str, Any]]) -> Table:
             f"{r['searches']:,}",
         )
     return table
+
+
+def bot_line(result: ReviewResult) -> str:
+    """One line on the machine traffic left out of the review's counts."""
+    b = result.bots
+    if not b:
+        return "Sessions were not built, so no bot searches were left out."
+    line = (
+        f"Left out as bots: {b['bot_searches']:,} searches from {b['bot_keys']:,} keys "
+        "(machine-rate sessions; SELECT * FROM session_traffic WHERE verdict = 'bot')."
+    )
+    if b.get("suspect_searches"):
+        line += (
+            f" Counted but suspect: {b['suspect_searches']:,} searches from "
+            f"{b['suspect_keys']:,} keys."
+        )
+    return line
+
+
+def cluster_table(clusters: list[dict[str, Any]], limit: int = 10) -> Table:
+    """The most searched clusters of failing queries."""
+    table = Table(title=f"Clusters of failing queries (top {limit})", title_justify="left")
+    for col in ("#", "label", "searches", "queries", "previous", "change", "terms", "examples"):
+        numeric = col in ("#", "searches", "queries", "previous", "change")
+        table.add_column(col, justify="right" if numeric else "left")
+    for c in clusters[:limit]:
+        previous, change = c.get("previous_searches"), c.get("change")
+        table.add_row(
+            str(c["cluster_id"]),
+            Text(str(c["label"])),
+            f"{c['searches']:,}",
+            f"{c['queries']:,}",
+            "-" if previous is None else f"{previous:,}",
+            "-" if change is None else f"{change:+,}",
+            Text(" ".join(c["terms"][:3])),
+            Text("; ".join(c["examples"][:3])),
+        )
+    return table

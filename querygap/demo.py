@@ -15,7 +15,6 @@ from querygap.logload import LoadOptions, load_log
 from querygap.pageload import ContentOptions, load_content
 from querygap.review import ReviewResult, failing_queries, run_review
 from querygap.settings import ReviewSettings
-from querygap.simple_sessions import fill_simple_sessions
 from querygap.windows import iso_week
 from querygap.workspace import connect
 
@@ -49,8 +48,6 @@ def run_demo(
             ContentOptions(source="site", base_url="https://help.kestrelvalley.example/"),
         ).summary()
     )
-    # Until a session stage fills search_sessions, the demo uses 30-minute sessions per visitor.
-    fill_simple_sessions(conn)
     settings = ReviewSettings()
     result = None
     for week in DEMO_WEEKS:

@@ -1,8 +1,10 @@
 """A review: index the content, score the window's unique queries, flag them, export.
 
 Stages and their tables: index (terms, doc_rows, doc_terms) -> score (query_scores,
-query_top_pages, query_terms; only queries not yet scored against this index) -> flag
-(reviews, review_queries) -> propose (proposals, proposal_examples; see querygap.proposals).
+query_top_pages, query_terms; only queries not yet scored against this index) -> sessions
+(search_sessions, session_traffic, review_bots) -> flag (reviews, review_queries; bot searches left
+out) -> cluster (clusters, cluster_members) -> propose (proposals, proposal_examples) -> export and
+report (reports/<review>/).
 """
 
 from __future__ import annotations
@@ -12,16 +14,20 @@ from collections.abc import Callable
 from dataclasses import dataclass, field
 from datetime import datetime
 from pathlib import Path
+from typing import Any
 
 import duckdb
 import pandas as pd
 
 from querygap.errors import OutputError, StageOrderError
+from querygap.clustering import ClusterSettings, run_clusters, top_clusters
+from querygap.errors import StageOrderError
 from querygap.indexing import build_index, load_index
 from querygap.proposal_files import write_proposal_files
 from querygap.proposals import awaiting_check, propose, top_fixes
 from querygap.safe_csv import write_csv
 from querygap.scoring import score_queries, store_scores
+from querygap.sessions import SessionSettings, build_sessions, record_review_bots
 from querygap.settings import ReviewSettings, validate
 from querygap.windows import Window, week_of
 from querygap.workspace import frame, run, transaction
@@ -59,6 +65,9 @@ class ReviewResult:
     queries: int
     failing_csv: Path | None = None
     report_html: Path | None = None
+    bots: dict[str, int] = field(default_factory=dict)
+    clusters: list[dict[str, Any]] = field(default_factory=list)
+    clusters_csv: Path | None = None
     timings: dict[str, float] = field(default_factory=dict)
     fixes: list[dict[str, object]] = field(default_factory=list)  # top fixes, most rescued first
     awaiting: list[dict[str, object]] = field(default_factory=list)  # accepted, not yet checked
@@ -77,6 +86,9 @@ def latest_window(conn: duckdb.DuckDBPyConnection, tz: str = "UTC") -> Window:
     return week_of(last, tz)
 
 
+#: Clusters carried in a ReviewResult (the terminal and --json show these; clusters.csv has all).
+CLUSTERS_IN_RESULT = 20
+
 Progress = Callable[[str], None]
 
 
@@ -86,8 +98,13 @@ def run_review(
     settings: ReviewSettings,
     out_dir: Path | None,
     progress: Progress | None = None,
+    sessions: SessionSettings | None = None,
+    clusters: ClusterSettings | None = None,
 ) -> ReviewResult:
-    """Run the index, score and flag stages for ``window`` and write failing_queries.csv."""
+    """Run the index, score, session, flag and cluster stages for ``window``.
+
+    Writes failing_queries.csv and clusters.csv to ``out_dir`` unless it is None.
+    """
     validate(settings)
     say = progress or (lambda _msg: None)
     timings: dict[str, float] = {}
@@ -106,6 +123,11 @@ def run_review(
         with transaction(conn):
             store_scores(conn, index_id, tables)
     timings["score"] = time.perf_counter() - t0
+
+    t0 = time.perf_counter()
+    say("sessions")
+    build_sessions(conn, sessions)
+    timings["sessions"] = time.perf_counter() - t0
 
     t0 = time.perf_counter()
     say("flag")
@@ -127,7 +149,14 @@ def run_review(
                 "min_coverage": settings.min_coverage,
             },
         )
+        bots = record_review_bots(conn, window)
     timings["flag"] = time.perf_counter() - t0
+
+    t0 = time.perf_counter()
+    say("cluster")
+    with transaction(conn):
+        run_clusters(conn, window, index_id, clusters)
+    timings["cluster"] = time.perf_counter() - t0
     result = summarize(conn, window, index_id, reused, len(todo))
     result.timings = timings
     t0 = time.perf_counter()
@@ -136,12 +165,15 @@ def run_review(
     result.fixes = top_fixes(proposed.proposals)
     result.awaiting = awaiting_check(conn, window.review_id, index_id)
     timings["propose"] = time.perf_counter() - t0
+    result.bots = bots
+    result.clusters = top_clusters(conn, window.review_id, CLUSTERS_IN_RESULT).to_dict("records")
     if out_dir is not None:
         from querygap.report import write_report  # the report reads this module's exports
 
         t0 = time.perf_counter()
         result.failing_csv = export_failing(conn, window.review_id, index_id, out_dir)
         result.proposal_files = write_proposal_files(conn, window.review_id, index_id, out_dir)
+        result.clusters_csv = export_clusters(conn, window.review_id, out_dir)
         timings["export"] = time.perf_counter() - t0
         t0 = time.perf_counter()
         say("report")
@@ -195,6 +227,15 @@ def failing_queries(conn: duckdb.DuckDBPyConnection, review_id: str, index_id: s
     data["best_score"] = data["best_score"].round(4)
     data["coverage"] = data["coverage"].round(4)
     return data[FAILING_COLUMNS]
+
+
+def export_clusters(conn: duckdb.DuckDBPyConnection, review_id: str, out_dir: Path) -> Path:
+    """Write clusters.csv: every cluster of the review, examples and terms joined by ' | '."""
+    out_dir.mkdir(parents=True, exist_ok=True)
+    data = top_clusters(conn, review_id)
+    data["examples"] = data["examples"].map(" | ".join)
+    data["terms"] = data["terms"].map(" ".join)
+    return write_csv(data, out_dir / "clusters.csv")
 
 
 def export_failing(

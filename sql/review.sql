@@ -33,7 +33,9 @@ INSERT INTO reviews VALUES ($review_id, $start, $end, $index_id, $settings, now(
 
 -- name: review_flag
 -- Every unique query of the window with volume, content score and status. Reads searches,
--- query_scores; writes review_queries. Status: zero when no query term is on any page (or the
+-- search_sessions, query_scores; writes review_queries. Searches of bot sessions (is_bot) are left
+-- out of every count; a search the session stage has not seen counts. Status: zero when no query
+-- term is on any page (or the
 -- query has no terms); low when the best page's cosine is below $min_score or its coverage below
 -- $min_coverage; ok otherwise.
 -- $review_id: the review
@@ -44,7 +46,9 @@ INSERT INTO reviews VALUES ($review_id, $start, $end, $index_id, $settings, now(
 -- $min_coverage: lowest best-page coverage that is not low
 INSERT INTO review_queries
 WITH win AS (
-    SELECT * FROM searches WHERE searched_at >= $start AND searched_at < $end
+    SELECT s.* FROM searches s
+    LEFT JOIN search_sessions b ON b.file_id = s.file_id AND b.line = s.line
+    WHERE s.searched_at >= $start AND s.searched_at < $end AND NOT coalesce(b.is_bot, false)
 ), texts AS (
     SELECT query, query_text, count(*) AS n,
            row_number() OVER (PARTITION BY query ORDER BY count(*) DESC, query_text) AS pick

@@ -1,0 +1,144 @@
+"""Session stage: group searches into sessions and mark machine traffic.
+
+Reads ``searches``; writes ``search_sessions`` (one row per search) and ``session_traffic`` (one
+row per session). The stage rebuilds both tables on every run, so it is idempotent.
+
+Sessions
+    A search with a session key belongs to that key's session. Otherwise the searches of one user
+    key, in time order, open a new session after more than ``gap_minutes`` of inactivity (a gap of
+    exactly ``gap_minutes`` stays in the session). A search with neither key is a session alone.
+    The default of 30 minutes is the de facto standard, traced to Catledge & Pitkow (1995); shorter
+    cut-offs in the literature are 5 minutes (Silverstein et al., SIGIR Forum 1999) and 10-15
+    minutes (He & Goeker, 2000).
+
+Bots
+    Following the idea of Duskin & Feitelson (WSCD 2009), each criterion has two thresholds: a
+    "surely human" limit and a "surely bot" limit, with an ambiguous zone between them. A session
+    beyond any bot limit is a bot (its searches stay in ``searches`` but are left out of review
+    rates); a session beyond a human limit only is a suspect (counted, and reported). Criteria:
+
+    - searches within any 60 s span (``peak_per_minute``),
+    - searches within any 3600 s span (``peak_per_hour``),
+    - the median gap in seconds between consecutive searches, for sessions of at least
+      ``min_searches`` searches (a few quick retypes are human; a long run of them is not).
+
+    The threshold values are our own, reasoned from how long a person needs to read a result list
+    and type the next query (common practice, no source): see :class:`SessionSettings`.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import duckdb
+import pandas as pd
+
+from querygap.errors import ConfigError
+from querygap.windows import Window
+from querygap.workspace import frame, run, transaction
+
+VERDICTS = ("bot", "suspect", "human")
+
+
+@dataclass(frozen=True)
+class SessionSettings:
+    """Session cut-off and bot thresholds.
+
+    Parameters
+    ----------
+    gap_minutes : float, default=30
+        Inactivity that opens a new session of a user key (Catledge & Pitkow, 1995).
+    human_per_minute, bot_per_minute : int, default=6, 20
+        Searches within 60 s. Six is one every 10 s, already quick for reading results and typing
+        again; twenty is one every 3 s, faster than a person types a short query (common practice,
+        no source).
+    human_per_hour, bot_per_hour : int, default=60, 150
+        Searches within 3600 s: a person refining hard for an hour rarely passes one a minute;
+        150 is one every 24 s for a whole hour (common practice, no source).
+    human_median_gap, bot_median_gap : float, default=8.0, 3.0
+        Median seconds between searches of a session with at least ``min_searches`` searches.
+        Under 3 s is below the time to type a query of a few words (common practice, no source).
+    min_searches : int, default=10
+        Fewest searches in a session for the median-gap criterion to apply.
+    """
+
+    gap_minutes: float = 30.0
+    human_per_minute: int = 6
+    bot_per_minute: int = 20
+    human_per_hour: int = 60
+    bot_per_hour: int = 150
+    human_median_gap: float = 8.0
+    bot_median_gap: float = 3.0
+    min_searches: int = 10
+
+    def sql_params(self) -> dict[str, float]:
+        return {
+            "human_per_minute": self.human_per_minute,
+            "bot_per_minute": self.bot_per_minute,
+            "human_per_hour": self.human_per_hour,
+            "bot_per_hour": self.bot_per_hour,
+            "human_median_gap": self.human_median_gap,
+            "bot_median_gap": self.bot_median_gap,
+            "min_searches": self.min_searches,
+        }
+
+
+def validate_sessions(settings: SessionSettings) -> SessionSettings:
+    """Raise ConfigError for a value out of range or a human limit beyond its bot limit."""
+    if not 0 < settings.gap_minutes <= 24 * 60:
+        raise ConfigError(
+            "--session-gap must be more than 0 and at most 1440 minutes; "
+            f"got {settings.gap_minutes}"
+        )
+    pairs = (
+        ("human_per_minute", "bot_per_minute", 1),
+        ("human_per_hour", "bot_per_hour", 1),
+        ("bot_median_gap", "human_median_gap", 0),
+    )
+    for low_name, high_name, least in pairs:
+        low, high = getattr(settings, low_name), getattr(settings, high_name)
+        if low < least or high < least:
+            raise ConfigError(f"{low_name} and {high_name} must be at least {least}")
+        if low > high:
+            raise ConfigError(
+                f"{low_name} ({low}) must not be above {high_name} ({high}): the ambiguous zone "
+                "lies between the two"
+            )
+    if settings.min_searches < 2:
+        raise ConfigError(f"min_searches must be at least 2; got {settings.min_searches}")
+    return settings
+
+
+def build_sessions(
+    conn: duckdb.DuckDBPyConnection, settings: SessionSettings | None = None
+) -> pd.DataFrame:
+    """Rebuild ``search_sessions`` and ``session_traffic``; return sessions per verdict.
+
+    Returns
+    -------
+    pandas.DataFrame
+        Columns verdict, sessions, searches, keys (distinct actor keys).
+    """
+    settings = validate_sessions(settings or SessionSettings())
+    with transaction(conn):
+        run(conn, "sessions_clear")
+        run(conn, "sessions_clear_traffic")
+        run(conn, "sessions_assign", {"gap_seconds": settings.gap_minutes * 60})
+        run(conn, "sessions_traffic", settings.sql_params())
+        run(conn, "sessions_mark_bots")
+    return frame(conn, "sessions_summary")
+
+
+def record_review_bots(conn: duckdb.DuckDBPyConnection, window: Window) -> dict[str, int]:
+    """Store and return the bot and suspect figures of a review window (table review_bots)."""
+    params = {"review_id": window.review_id, "start": window.start, "end": window.end}
+    run(conn, "sessions_clear_review_bots", {"review_id": window.review_id})
+    run(conn, "sessions_review_bots", params)
+    row = run(conn, "sessions_review_bots_row", {"review_id": window.review_id}).fetchall()[0]
+    names = ("bot_keys", "bot_searches", "suspect_keys", "suspect_searches")
+    return {k: int(v) for k, v in zip(names, row, strict=True)}
+
+
+def bot_keys(conn: duckdb.DuckDBPyConnection, window: Window) -> pd.DataFrame:
+    """The bot actor keys of a window with their searches, most first."""
+    return frame(conn, "sessions_review_bot_keys", {"start": window.start, "end": window.end})
