@@ -377,7 +377,10 @@ def simulate_command(
         "reports"
     ),
     not_rejected: Annotated[
-        bool, typer.Option("--not-rejected", help="Apply every rule not rejected, not only accepted ones.")
+        bool,
+        typer.Option(
+            "--not-rejected", help="Apply every rule not rejected, not only accepted ones."
+        ),
     ] = False,
     score_margin: Annotated[
         float, typer.Option(help="An ok query whose best cosine falls by more than this regressed.")
@@ -425,12 +428,13 @@ def observe_command(
     db: DbOpt = DEFAULT_WORKSPACE,
     tz: TzOpt = "UTC",
     not_rejected: Annotated[
-        bool, typer.Option("--not-rejected", help="Observe every rule not rejected, not only accepted ones.")
+        bool,
+        typer.Option(
+            "--not-rejected", help="Observe every rule not rejected, not only accepted ones."
+        ),
     ] = False,
     alpha: Annotated[float, typer.Option(help="Significance level of the test.")] = 0.05,
-    min_searches: Annotated[
-        int, typer.Option(help="Fewest searches per side for a verdict.")
-    ] = 30,
+    min_searches: Annotated[int, typer.Option(help="Fewest searches per side for a verdict.")] = 30,
     exact: Annotated[
         bool, typer.Option(help="Use Fisher's exact test where the z-test is not trusted.")
     ] = True,

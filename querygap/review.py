@@ -68,6 +68,7 @@ class ReviewResult:
     bots: dict[str, int] = field(default_factory=dict)
     clusters: list[dict[str, Any]] = field(default_factory=list)
     clusters_csv: Path | None = None
+    checks: list[dict[str, Any]] = field(default_factory=list)  # accepted decisions checked now
     timings: dict[str, float] = field(default_factory=dict)
     fixes: list[dict[str, object]] = field(default_factory=list)  # top fixes, most rescued first
     awaiting: list[dict[str, object]] = field(default_factory=list)  # accepted, not yet checked
@@ -165,6 +166,12 @@ def run_review(
     result.fixes = top_fixes(proposed.proposals)
     result.awaiting = awaiting_check(conn, window.review_id, index_id)
     timings["propose"] = time.perf_counter() - t0
+    from querygap.observe import check_accepted  # observe reads this module's thresholds
+
+    t0 = time.perf_counter()
+    say("check")
+    result.checks = check_accepted(conn, window).to_dict("records")
+    timings["check"] = time.perf_counter() - t0
     result.bots = bots
     result.clusters = top_clusters(conn, window.review_id, CLUSTERS_IN_RESULT).to_dict("records")
     if out_dir is not None:

@@ -27,6 +27,8 @@ FROM reviews r
 JOIN searches s ON s.searched_at >= r.window_start AND s.searched_at < r.window_end
 JOIN review_queries q ON q.review_id = r.review_id AND q.query = s.query
 WHERE r.review_id = $review_id
+  AND NOT EXISTS (SELECT 1 FROM search_sessions b  -- bot searches are left out, as in the review
+                  WHERE b.file_id = s.file_id AND b.line = s.line AND b.is_bot)
 GROUP BY ALL ORDER BY day, q.status;
 
 -- name: report_profile
@@ -65,14 +67,18 @@ GROUP BY table_name ORDER BY table_name;
 -- name: report_clusters
 -- The review's clusters, most failing searches first. Only run when table clusters exists.
 -- $review_id: the review
-SELECT * FROM clusters WHERE review_id = $review_id ORDER BY searches DESC, label;
+SELECT review_id, cluster_id, label, searches, queries, previous_searches, change
+FROM clusters WHERE review_id = $review_id ORDER BY searches DESC, label;
 
 -- name: report_proposals
 -- The review's proposals, most rescued searches first. Only run when table proposals exists.
 -- $review_id: the review
-SELECT * FROM proposals WHERE review_id = $review_id ORDER BY rescued DESC, searches DESC, term;
+SELECT review_id, kind, term, suggestion, searches, rescued, round(confidence, 2) AS confidence,
+       evidence
+FROM proposals WHERE review_id = $review_id AND rank = 1
+ORDER BY rescued DESC, searches DESC, term;
 
 -- name: report_checks
--- Results of fix checks recorded for the review. Only run when table checks exists.
+-- Checks of accepted decisions recorded at the review. Only run when decision_checks exists.
 -- $review_id: the review
-SELECT * FROM checks WHERE review_id = $review_id;
+SELECT * FROM decision_checks WHERE review_id = $review_id ORDER BY kind, term;

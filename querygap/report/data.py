@@ -28,7 +28,7 @@ FAILING = ("zero", "low")
 OPTIONAL_TABLES = {
     "clusters": "report_clusters",
     "proposals": "report_proposals",
-    "checks": "report_checks",
+    "decision_checks": "report_checks",
 }
 
 
@@ -177,5 +177,5 @@ def load_report_data(conn: duckdb.DuckDBPyConnection, review_id: str) -> ReportD
         ),
         clusters=_optional(conn, present, "clusters", review_id),
         proposals=_optional(conn, present, "proposals", review_id),
-        checks=_optional(conn, present, "checks", review_id),
+        checks=_optional(conn, present, "decision_checks", review_id),
     )
