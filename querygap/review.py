@@ -19,9 +19,8 @@ from typing import Any
 import duckdb
 import pandas as pd
 
-from querygap.errors import OutputError, StageOrderError
 from querygap.clustering import ClusterSettings, run_clusters, top_clusters
-from querygap.errors import StageOrderError
+from querygap.errors import OutputError, StageOrderError
 from querygap.indexing import build_index, load_index
 from querygap.proposal_files import write_proposal_files
 from querygap.proposals import awaiting_check, propose, top_fixes

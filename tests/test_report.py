@@ -5,7 +5,6 @@ from __future__ import annotations
 import xml.etree.ElementTree as ET
 from pathlib import Path
 
-import duckdb
 import numpy as np
 import pandas as pd
 import plotly.graph_objects as go
@@ -16,7 +15,6 @@ from report_demo import HOSTILE, build
 from scipy import stats
 from selectolax.lexbor import LexborHTMLParser as HTMLParser
 
-from querygap.report import write_report
 from querygap.report.charts import all_charts, zipf_slope
 from querygap.report.data import band_rates, daily_rates, frequency_profile, load_report_data
 from querygap.report.html import NOT_RUN
