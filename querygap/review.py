@@ -126,6 +126,7 @@ def run_review(
     result.timings = timings
     if out_dir is not None:
         t0 = time.perf_counter()
+        say("export")
         result.failing_csv = export_failing(conn, window.review_id, index_id, out_dir)
         timings["export"] = time.perf_counter() - t0
     return result

@@ -37,3 +37,7 @@ def _wide_terminal(monkeypatch: pytest.MonkeyPatch) -> None:
 def write(path: Path, text: str, encoding: str = "utf-8") -> Path:
     path.write_text(text, encoding=encoding)
     return path
+
+
+# The benchmarks are run by hand (python tests/benchmarks/run.py), never by the default suite.
+collect_ignore = ["benchmarks"]
