@@ -77,7 +77,7 @@ def scatter_add(weights: sp.csr_matrix, postings: sp.csr_matrix, chunk: int = 12
     return np.concatenate(rows), np.concatenate(docs), np.concatenate(vals)
 
 
-def postings_pass(weights: sp.csr_matrix, postings: sp.csr_matrix, chunk: int = 4096) -> int:
+def postings_pass(weights: sp.csr_matrix, postings: sp.csr_matrix, chunk: int = 1024) -> int:
     """The bare cost of reading every touched posting once in numpy (no per-query result).
 
     A lower bound for any numpy method, not a scorer: it returns only the number of postings.

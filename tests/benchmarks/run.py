@@ -60,11 +60,19 @@ class Row:
     note: str = ""
 
 
+class Rows(list):
+    """The table's rows; each is echoed to stderr as it lands, so a long run shows progress."""
+
+    def append(self, row: Row) -> None:
+        super().append(row)
+        print(f"  .. {row.name}: {row.wall:.2f} s", file=sys.stderr, flush=True)
+
+
 class Clock:
     """Wall and CPU seconds (this process, all threads) of a block, and the peak RSS after it."""
 
     def __init__(self) -> None:
-        self.rows: list[Row] = []
+        self.rows: list[Row] = Rows()
 
     def time(self, name: str, func: Callable[[], object], queries: int = 0, postings: int = 0):
         w0, c0 = time.perf_counter(), time.process_time()

@@ -7,8 +7,9 @@ Shape (all drawn from ``numpy.random.default_rng(seed)``):
   source);
 - pages: lognormal body lengths in words (``exp(N(PAGE_MU, PAGE_SIGMA))``, at least 5), a title of
   3-8 words and 0-3 two-word headings; written as a CSV export (id, title, body, url);
-- unique queries: 1-5 terms drawn from the same Zipf law; about ``ABSENT_SHARE`` of them carry one
-  term that no page has (a word with the suffix ``qz``, which the syllables never make);
+- unique queries: 1-5 terms drawn by Zipf's law below the ``QUERY_SKIP`` most frequent words;
+  about ``ABSENT_SHARE`` of them carry one term that no page has (a word with the suffix
+  ``qz``, which the syllables never make);
 - week 1 log: every unique query at least once, the remaining rows by Zipf's law over query rank,
   timestamps uniform over one ISO week; week 2 log: a quarter as many rows in the next week, 90%
   from week 1's queries and 10% new ones (for the incremental review).
@@ -29,6 +30,9 @@ import pyarrow.csv as pacsv
 ZIPF_S = 1.05
 PAGE_MU, PAGE_SIGMA = 5.0, 0.8  # median ~150 words per page body
 ABSENT_SHARE = 0.12
+# Query terms skip the most frequent words (people seldom search for function words) and follow
+# Zipf's law with exponent 1 below them (both common practice, no source).
+QUERY_SKIP, QUERY_S = 200, 1.0
 WEEK1 = datetime(2025, 3, 3)  # Monday of ISO week 2025-W10
 CONSONANTS = "bdfgklmnprstv"
 VOWELS = "aeiou"
@@ -122,7 +126,8 @@ def make_queries(rng: np.random.Generator, n: int, words: np.ndarray) -> np.ndar
     while len(out) < n:
         m = int((n - len(out)) * 1.3) + 100
         lens = rng.integers(1, 6, m)
-        toks = words[zipf_draw(rng, len(words), int(lens.sum()))].copy()
+        ranks = QUERY_SKIP + zipf_draw(rng, len(words) - QUERY_SKIP, int(lens.sum()), QUERY_S)
+        toks = words[ranks].copy()
         absent = rng.random(m) < ABSENT_SHARE
         first = np.r_[0, np.cumsum(lens)[:-1]]
         toks[first[absent]] = toks[first[absent]] + "qz"
