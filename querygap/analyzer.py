@@ -27,6 +27,7 @@ import sys
 import unicodedata
 from dataclasses import dataclass
 from functools import cache
+from itertools import chain
 
 import numpy as np
 import pandas as pd
@@ -113,18 +114,24 @@ def analyze_series(texts: pd.Series, settings: AnalyzerSettings | None = None) -
     """
     settings = settings or AnalyzerSettings()
     found = fold(texts).str.findall(TOKEN)
-    rows = np.repeat(np.arange(len(found), dtype=np.int64), found.str.len().to_numpy())
-    raw = np.array([t for toks in found for t in toks], dtype=object)
+    lengths = np.fromiter(map(len, found), np.int64, len(found))
+    rows = np.repeat(np.arange(len(found), dtype=np.int64), lengths)
+    raw = np.array(list(chain.from_iterable(found)), dtype=object)
     if raw.size == 0:
         return pd.DataFrame({"row": np.empty(0, np.int64), "term": np.empty(0, object)})
     codes, uniques = pd.factorize(raw)
     mapping = _finish(uniques, settings)
-    lists = pd.Series([mapping[u] for u in uniques], dtype=object)
-    out = pd.DataFrame({"row": rows, "term": lists.to_numpy()[codes]})
-    out = out.explode("term", ignore_index=True).dropna(subset=["term"])
-    out["row"] = out["row"].astype(np.int64)
-    out["term"] = out["term"].astype(object)
-    return out.reset_index(drop=True)
+    # Each distinct token gives 0, 1 or more terms; spread them over its occurrences with
+    # index arithmetic (no per-occurrence Python work), keeping text order.
+    per_token = [mapping[u] for u in uniques]
+    n_terms = np.fromiter(map(len, per_token), np.int64, len(per_token))
+    flat = np.array(list(chain.from_iterable(per_token)), dtype=object)
+    first = np.cumsum(n_terms) - n_terms
+    spread = n_terms[codes]
+    total = int(spread.sum())
+    offset = np.repeat(first[codes] - (np.cumsum(spread) - spread), spread)
+    terms = flat[offset + np.arange(total)] if total else np.empty(0, object)
+    return pd.DataFrame({"row": np.repeat(rows, spread), "term": terms})
 
 
 def analyze(text: str, settings: AnalyzerSettings | None = None) -> list[str]:

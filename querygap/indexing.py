@@ -78,10 +78,10 @@ def field_counts(pages: pd.DataFrame, settings: IndexSettings) -> tuple[sp.csr_m
         found["w"] = weight
         parts.append(found)
     occ = pd.concat(parts, ignore_index=True)
-    summed = occ.groupby(["row", "term"], sort=False)["w"].sum().reset_index()
-    codes, vocab = pd.factorize(summed["term"], sort=True)
+    codes, vocab = pd.factorize(occ["term"], sort=True)
+    # The sparse constructor sums repeated (row, term) pairs: the weighted count of each term.
     counts = sp.csr_matrix(
-        (summed["w"].to_numpy(np.float64), (summed["row"].to_numpy(), codes)),
+        (occ["w"].to_numpy(np.float64), (occ["row"].to_numpy(), codes)),
         shape=(len(pages), len(vocab)),
     )
     counts.sum_duplicates()

@@ -142,10 +142,13 @@ def rewrite(sequences: pd.DataFrame, candidates: pd.DataFrame) -> pd.DataFrame:
     DataFrame with columns cand, row, rewritten (the terms joined by spaces).
     """
     seq = sequences[["row", "pos", "term"]].reset_index(drop=True)
+    seq["term"] = seq["term"].astype(object)  # an empty frame may come back float-typed
     seq["next"] = seq["term"].shift(-1).where(seq["row"].eq(seq["row"].shift(-1)), "")
     cand = candidates[["cand", "term", "suggestion"]].copy()
+    cand["term"] = cand["term"].astype(object)
     parts = cand["term"].str.split(" ", n=1, expand=True).reindex(columns=[0, 1])
-    cand["first"], cand["second"] = parts[0], parts[1].astype(object).fillna("")
+    cand["first"] = parts[0].astype(object)
+    cand["second"] = parts[1].astype(object).fillna("")
     hits = seq.merge(cand, left_on="term", right_on="first", suffixes=("", "_c"))
     hits = hits[(hits["second"] == "") | (hits["second"] == hits["next"])]
     pairs = hits[["cand", "row"]].drop_duplicates()

@@ -177,6 +177,7 @@ def run_review(
         from querygap.report import write_report  # the report reads this module's exports
 
         t0 = time.perf_counter()
+        say("export")
         result.failing_csv = export_failing(conn, window.review_id, index_id, out_dir)
         result.proposal_files = write_proposal_files(conn, window.review_id, index_id, out_dir)
         result.clusters_csv = export_clusters(conn, window.review_id, out_dir)

@@ -11,8 +11,9 @@ the best page contains it, and
 with unknown terms weighing ``unknown_term_idf`` (the idf of df = 1). A query whose terms all have
 idf 0 (every page has them) gets coverage 1 when its best page has them all.
 
-The product is computed in chunks of queries with sparse matrices; the top-k selection is a
-vectorised sort of each chunk's non-zero scores, never a Python loop over queries.
+The product and the top-k selection are done by :func:`querygap.scoring_kernel.top_k_scores`:
+a compiled term-at-a-time kernel when numba is installed, chunked sparse products with a
+vectorised sort otherwise; never a Python loop over queries.
 """
 
 from __future__ import annotations
@@ -26,6 +27,8 @@ import scipy.sparse as sp
 
 from querygap.analyzer import analyze_series
 from querygap.indexing import Index
+from querygap.scoring_kernel import top_k_rows as top_k_rows  # kept importable from here
+from querygap.scoring_kernel import top_k_scores
 from querygap.weighting import query_weights, unknown_term_idf
 
 TOP_K = 5
@@ -72,23 +75,6 @@ def query_terms(queries: pd.Series, index: Index) -> QueryTerms:
     return QueryTerms(known_m, unknown_m, distinct)
 
 
-def top_k_rows(scores: sp.csr_matrix, k: int) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-    """The ``k`` largest entries of each row: (row, column, value), rows ascending, values falling.
-
-    Ties are broken by the lower column index, so the result is deterministic.
-    """
-    scores = scores.tocsr()
-    scores.eliminate_zeros()
-    rows = np.repeat(np.arange(scores.shape[0]), np.diff(scores.indptr))
-    order = np.lexsort((scores.indices, -scores.data, rows))
-    rows_sorted = rows[order]
-    starts = scores.indptr[:-1][rows_sorted]
-    rank = np.arange(order.size) - starts
-    keep = rank < k
-    picked = order[keep]
-    return rows_sorted[keep], scores.indices[picked], scores.data[picked]
-
-
 @dataclass(frozen=True)
 class ScoreTables:
     """The three result tables, ready to store."""
@@ -99,24 +85,21 @@ class ScoreTables:
 
 
 def score_queries(
-    queries: pd.Series, index: Index, chunk: int = 20_000, k: int = TOP_K
+    queries: pd.Series, index: Index, chunk: int | None = None, k: int = TOP_K
 ) -> ScoreTables:
-    """Score unique queries against ``index`` (pure computation; storing is the caller's job)."""
+    """Score unique queries against ``index`` (pure computation; storing is the caller's job).
+
+    ``chunk=None`` (the default) takes the compiled kernel of :mod:`querygap.scoring_kernel` when
+    numba is installed; a number of queries per chunk forces the pure numpy path in chunks of
+    that size. Both give the same scores and pages.
+    """
     queries = pd.Series(queries, dtype=object).reset_index(drop=True)
     n = len(queries)
     qt = query_terms(queries, index)
     weights = query_weights(qt.known, index.idf, qt.unknown, index.n_docs, index.settings.weighting)
     pages_t = index.vectors.T.tocsr()
-    rows_out, cols_out, vals_out = [], [], []
-    for start in range(0, n, chunk):
-        block = weights[start : start + chunk] @ pages_t
-        r, c, v = top_k_rows(block, k)
-        rows_out.append(r + start)
-        cols_out.append(c)
-        vals_out.append(v)
-    top_r = np.concatenate(rows_out) if rows_out else np.empty(0, np.int64)
-    top_c = np.concatenate(cols_out) if cols_out else np.empty(0, np.int64)
-    top_v = np.concatenate(vals_out) if vals_out else np.empty(0)
+    compiled = None if chunk is None else False
+    top_r, top_c, top_v = top_k_scores(weights, pages_t, k, use_compiled=compiled, chunk=chunk)
     first = np.r_[True, top_r[1:] != top_r[:-1]] if top_r.size else np.empty(0, bool)
     best_doc_row = np.full(n, -1, dtype=np.int64)
     best_score = np.zeros(n)

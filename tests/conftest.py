@@ -45,3 +45,6 @@ from hypothesis import settings as _hypothesis_settings  # noqa: E402
 
 _hypothesis_settings.register_profile("querygap", deadline=None)
 _hypothesis_settings.load_profile("querygap")
+
+# The benchmarks are run by hand (python tests/benchmarks/run.py), never by the default suite.
+collect_ignore = ["benchmarks"]

@@ -1,0 +1,57 @@
+"""A second week's review reuses the index and scores only the queries it has not scored."""
+
+from __future__ import annotations
+
+from datetime import datetime
+from pathlib import Path
+
+from querygap.logload import LoadOptions, load_log
+from querygap.pageload import ContentOptions, load_content
+from querygap.review import run_review
+from querygap.settings import ReviewSettings
+from querygap.windows import week_of
+
+CONTENT = """id,title,body
+meter,Water meter,Replace a broken water meter or read it yourself.
+bill,Pay your bill,Pay the water bill online or by phone.
+leak,Report a leak,Report a leak in the street or at home.
+"""
+
+
+def log(path: Path, day: str, queries: list[str]) -> Path:
+    lines = ["timestamp,query,session"]
+    lines += [f"{day} 10:{i:02d}:00,{q},s{i}" for i, q in enumerate(queries)]
+    path.write_text("\n".join(lines) + "\n", encoding="utf-8")
+    return path
+
+
+def test_second_week_reuses_index_and_scores_only_new_queries(conn, tmp_path) -> None:
+    (tmp_path / "pages.csv").write_text(CONTENT, encoding="utf-8")
+    load_content(conn, tmp_path / "pages.csv", ContentOptions(source="site"))
+    load_log(
+        conn,
+        log(tmp_path / "w1.csv", "2025-03-04", ["water meter", "leak", "pay bill"]),
+        LoadOptions(),
+    )
+    load_log(
+        conn,
+        log(tmp_path / "w2.csv", "2025-03-11", ["leak", "sofa", "water meter", "leak"]),
+        LoadOptions(),
+    )
+    settings = ReviewSettings()
+    first = run_review(conn, week_of(datetime(2025, 3, 4)), settings, None)
+    second = run_review(conn, week_of(datetime(2025, 3, 11)), settings, None)
+    assert (first.index_reused, first.scored_now, first.queries) == (False, 3, 3)
+    assert second.index_id == first.index_id
+    assert (second.index_reused, second.scored_now, second.queries) == (True, 1, 3)
+    rows = conn.execute("SELECT count(*), count(DISTINCT query) FROM query_scores").fetchall()
+    assert rows == [(4, 4)]  # "sofa" added; nothing scored twice
+
+    # Changed content: a new index, and every query of the week is scored against it.
+    (tmp_path / "pages.csv").write_text(
+        CONTENT + "sofa,Sofas,We do not sell sofas.\n", encoding="utf-8"
+    )
+    load_content(conn, tmp_path / "pages.csv", ContentOptions(source="site"))
+    third = run_review(conn, week_of(datetime(2025, 3, 11)), settings, None)
+    assert third.index_id != first.index_id
+    assert (third.index_reused, third.scored_now) == (False, 3)

@@ -1,0 +1,110 @@
+"""The compiled top-k kernel against the numpy path and against scikit-learn's cosine."""
+
+from __future__ import annotations
+
+import numpy as np
+import pandas as pd
+import pytest
+import scipy.sparse as sp
+from sklearn.metrics.pairwise import cosine_similarity
+from sklearn.preprocessing import normalize
+
+from querygap import scoring_kernel
+from querygap.indexing import Index, IndexSettings, field_counts
+from querygap.scoring import score_queries
+from querygap.scoring_kernel import top_k_scores
+from querygap.weighting import document_frequency, page_weights
+
+needs_numba = pytest.mark.skipif(not scoring_kernel.HAVE_NUMBA, reason="numba is not installed")
+
+
+def random_problem(seed: int, n_q: int = 300, n_t: int = 200, n_d: int = 400):
+    """Unit query rows and page rows with random non-negative weights (no ties: continuous)."""
+    q = sp.random(n_q, n_t, density=0.02, format="csr", random_state=seed)
+    d = sp.random(n_d, n_t, density=0.05, format="csr", random_state=seed + 1)
+    return normalize(q), normalize(d)
+
+
+@pytest.mark.parametrize("path", [pytest.param(True, marks=needs_numba), False])
+@pytest.mark.parametrize("seed", [0, 1, 2])
+def test_top_pages_match_sklearn_cosine(seed: int, path: bool) -> None:
+    q, d = random_problem(seed)
+    rows, docs, vals = top_k_scores(q, d.T.tocsr(), 5, use_compiled=path)
+    # Reference: scikit-learn's cosine_similarity, dense, sorted per row (a general library).
+    dense = cosine_similarity(q, d)
+    for row in range(q.shape[0]):
+        want = [c for c in np.argsort(-dense[row], kind="stable")[:5] if dense[row, c] > 0]
+        got = docs[rows == row]
+        assert list(got) == want
+        np.testing.assert_allclose(vals[rows == row], dense[row, want], rtol=0, atol=1e-12)
+    assert np.all(np.diff(rows) >= 0)
+
+
+@needs_numba
+@pytest.mark.parametrize("k", [1, 3, 5, 50])
+def test_compiled_equals_numpy_path_bit_for_bit(k: int) -> None:
+    q, d = random_problem(7, n_q=500)
+    postings = d.T.tocsr()
+    a = top_k_scores(q, postings, k, use_compiled=True)
+    b = top_k_scores(q, postings, k, use_compiled=False)
+    for x, y in zip(a, b, strict=True):
+        np.testing.assert_array_equal(x, y)
+
+
+@needs_numba
+def test_ties_go_to_the_lower_page_and_zero_scores_are_dropped() -> None:
+    # Pages 0, 2, 3 are identical; page 1 shares nothing with the query.
+    pages = normalize(sp.csr_matrix(np.array([[1.0, 1, 0], [0, 0, 1], [1, 1, 0], [1, 1, 0]])))
+    query = normalize(sp.csr_matrix(np.array([[1.0, 0, 0], [0, 0, 0]])))
+    for compiled in (True, False):
+        rows, docs, vals = top_k_scores(query, pages.T.tocsr(), 2, use_compiled=compiled)
+        assert list(rows) == [0, 0]
+        assert list(docs) == [0, 2]
+        np.testing.assert_allclose(vals, [np.sqrt(0.5)] * 2)
+
+
+def small_index() -> Index:
+    pages = pd.DataFrame(
+        {
+            "doc_id": ["a", "b", "c", "d"],
+            "title": ["water meter", "bill payment", "leak report", "meter reading"],
+            "headings": ["", "pay online", "", "read your meter"],
+            "body": [
+                "replace a broken water meter",
+                "pay your water bill online or by phone",
+                "report a leak in the street",
+                "how to read the meter and send the reading",
+            ],
+        }
+    )
+    settings = IndexSettings()
+    counts, vocab = field_counts(pages, settings)
+    vectors, idf = page_weights(counts, settings.weighting)
+    return Index(
+        "test",
+        settings,
+        pages["doc_id"].to_numpy(object),
+        pd.Index(vocab),
+        idf,
+        document_frequency(counts),
+        vectors,
+    )
+
+
+def test_score_queries_gives_the_same_tables_on_both_paths() -> None:
+    index = small_index()
+    queries = pd.Series(["water meter", "pay bill", "leak", "sofa", "meter reading online", ""])
+    fast = score_queries(queries, index)
+    slow = score_queries(queries, index, chunk=2)
+    pd.testing.assert_frame_equal(fast.scores, slow.scores)
+    pd.testing.assert_frame_equal(fast.top_pages, slow.top_pages)
+    pd.testing.assert_frame_equal(fast.terms, slow.terms)
+    best = fast.scores.set_index("query")
+    assert best.loc["leak", "best_doc"] == "c"
+    assert best.loc["sofa", "best_score"] == 0
+    assert pd.isna(best.loc["sofa", "best_doc"])
+
+
+def test_the_compiled_path_is_installed() -> None:
+    # numba is a dependency: the numpy fallback is exact but far too slow for large logs.
+    assert scoring_kernel.HAVE_NUMBA
