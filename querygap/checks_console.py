@@ -145,6 +145,11 @@ def observation_lines(result: ObservationResult) -> list[str]:
         f"Rules: {v.get('fixed', 0)} fixed, {v.get('not fixed', 0)} not fixed, "
         f"{v.get('not enough data', 0)} without enough searches to tell.",
     ]
+    if not sum(v.values()):
+        lines.append(
+            "No rule was observed: the rules file has no accepted rule (mark rules accepted in "
+            "its status column, or pass --not-rejected)."
+        )
     if result.bot_searches:
         lines.append(f"{result.bot_searches:,} bot searches left out.")
     lines.extend(f"Warning: {w}" for w in result.warnings)

@@ -206,14 +206,19 @@ def print_review(result: ReviewResult, rows: list[dict[str, Any]], out_dir: Path
         stdout.print(out.failing_table(rows))
     if result.clusters:
         stdout.print(out.cluster_table(result.clusters))
-    stdout.print(f"Failing queries: {result.failing_csv}", markup=False)
     if result.fixes:
         stdout.print(out.fixes_table(result.fixes))
+    if result.checks:
+        stdout.print(out.checks_table(result.checks))
     if result.awaiting:
         stdout.print(out.awaiting_table(result.awaiting))
-    for name, path in result.proposal_files.items():
-        stdout.print(f"{name.replace('_', ' ').capitalize()}: {path}", markup=False)
-    stdout.print(f"Clusters: {result.clusters_csv}", markup=False)
+    files = {
+        "report (open this)": result.report_html,
+        "failing queries": result.failing_csv,
+        "clusters": result.clusters_csv,
+    }
+    files |= {name.replace("_", " "): path for name, path in result.proposal_files.items()}
+    stdout.print(out.files_table(files))
     took = ", ".join(f"{k} {v:.1f}s" for k, v in result.timings.items())
     stdout.print(
         f"Index {result.index_id} ({'reused' if result.index_reused else 'built'}); "

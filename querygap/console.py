@@ -161,7 +161,8 @@ def bot_line(result: ReviewResult) -> str:
     if not b:
         return "Sessions were not built, so no bot searches were left out."
     line = (
-        f"Left out as bots: {b['bot_searches']:,} searches from {b['bot_keys']:,} keys "
+        f"Left out as bots: {b['bot_searches']:,} searches from {b['bot_keys']:,} "
+        f"{'key' if b['bot_keys'] == 1 else 'keys'} "
         "(machine-rate sessions; SELECT * FROM session_traffic WHERE verdict = 'bot')."
     )
     if b.get("suspect_searches"):
@@ -190,4 +191,51 @@ def cluster_table(clusters: list[dict[str, Any]], limit: int = 10) -> Table:
             Text(" ".join(c["terms"][:3])),
             Text("; ".join(c["examples"][:3])),
         )
+    return table
+
+
+def checks_table(rows: list[dict[str, Any]]) -> Table:
+    """Accepted fixes checked at this review: failure rate before and after, and the verdict."""
+    table = Table(title="Accepted fixes, checked against the log", title_justify="left")
+    for col in (
+        "kind",
+        "term",
+        "replacement",
+        "before",
+        "after",
+        "failing before",
+        "failing after",
+        "p",
+        "verdict",
+    ):
+        numeric = col in ("before", "after", "failing before", "failing after", "p")
+        table.add_column(col, justify="right" if numeric else "left")
+    for r in rows:
+
+        def share(x: Any) -> str:
+            return "-" if x is None or x != x else pct(float(x))
+
+        p = r.get("p_value")
+        table.add_row(
+            r["kind"],
+            Text(str(r["term"])),
+            Text(str(r["replacement"])),
+            f"{int(r['before_searches']):,}",
+            f"{int(r['after_searches']):,}",
+            share(r.get("failure_before")),
+            share(r.get("failure_after")),
+            "-" if p is None or p != p else f"{float(p):.3g}",
+            Text(str(r["verdict"])),
+        )
+    return table
+
+
+def files_table(files: dict[str, Any]) -> Table:
+    """Where the review's files are."""
+    table = Table(title="Files of this review", title_justify="left", show_header=False)
+    table.add_column("what")
+    table.add_column("path")
+    for name, path in files.items():
+        if path:
+            table.add_row(name, Text(str(path)))
     return table

@@ -80,3 +80,27 @@ def test_load_and_review_json(tmp_path: Path) -> None:
     assert payload["totals"]["zero"]["queries"] == 1  # "solar panels": no page has either word
     assert payload["totals"]["ok"]["queries"] == 1
     assert (out / "2026-W45" / "failing_queries.csv").exists()
+
+
+def test_checks_and_files_tables_render_log_text_literally() -> None:
+    from rich.console import Console
+
+    from querygap import console as out
+
+    row = {
+        "kind": "synonym",
+        "term": "[b]sewer",
+        "replacement": "wastewater",
+        "before_searches": 79,
+        "after_searches": 90,
+        "failure_before": 1.0,
+        "failure_after": 0.0,
+        "p_value": 1e-18,
+        "verdict": "fixed",
+    }
+    rec = Console(width=200, record=True)
+    rec.print(out.checks_table([row]))
+    rec.print(out.files_table({"report (open this)": "reports/2026-W46/index.html", "none": None}))
+    text = rec.export_text()
+    assert "[b]sewer" in text and "100.0%" in text and "0.0%" in text and "fixed" in text
+    assert "reports/2026-W46/index.html" in text and "none" not in text
