@@ -8,7 +8,6 @@ from __future__ import annotations
 
 import functools
 import shutil
-import sys
 from collections.abc import Callable
 from pathlib import Path
 from typing import Annotated, Any, TypeVar
@@ -475,4 +474,4 @@ def main() -> None:  # pragma: no cover
 
 
 if __name__ == "__main__":  # pragma: no cover
-    sys.exit(main())
+    main()

@@ -78,8 +78,9 @@ def engine_lines(result: ReviewResult) -> list[str]:
     if not d.get("engine_searches"):
         return ["The log has no result counts, so the engine's own view is not compared."]
     return [
-        f"The content answers {d['content_only_queries']:,} queries ({d['content_only_searches']:,} "
-        "searches) for which the engine showed no results: check the engine's index and analyzer.",
+        f"The content answers {d['content_only_queries']:,} queries "
+        f"({d['content_only_searches']:,} searches) for which the engine showed no results: "
+        "check the engine's index and analyzer.",
         f"The engine showed results for {d['engine_only_queries']:,} queries "
         f"({d['engine_only_searches']:,} searches) that no page answers well: check what it shows.",
     ]

@@ -102,7 +102,7 @@ def build_index(conn: duckdb.DuckDBPyConnection, settings: IndexSettings) -> tup
     if pages.empty:
         raise StageOrderError("no content pages are loaded; run 'querygap add-pages' first")
     index_id = fingerprint(pages, settings)
-    if run(conn, "index_exists", {"index_id": index_id}).fetchall()[0][0]:  # type: ignore[index]
+    if run(conn, "index_exists", {"index_id": index_id}).fetchall()[0][0]:
         with transaction(conn):
             run(conn, "index_make_current", {"index_id": index_id})
         return index_id, True

@@ -256,9 +256,9 @@ def map_columns(columns: list[str], overrides: dict[str, str], source: str) -> d
         if fld in mapping:
             continue
         for alias in ALIASES[fld]:
-            col = by_key.get(alias)
-            if col is not None and col not in mapping.values():
-                mapping[fld] = col
+            found = by_key.get(alias)
+            if found is not None and found not in mapping.values():
+                mapping[fld] = found
                 break
     missing = [f for f in REQUIRED if f not in mapping]
     if missing:
@@ -307,7 +307,7 @@ def sniff_log(
             raise InputError(
                 f"{source}: not a readable Parquet file: {str(exc).splitlines()[0]}"
             ) from None
-        columns = list(rel.columns)
+        columns = list(rel.columns) if rel is not None else []
         return LogLayout(
             path,
             form,

@@ -142,7 +142,7 @@ def read_export(path: Path) -> pd.DataFrame:
 
 
 def strip_title_boilerplate(titles: list[str], share: float) -> list[str]:
-    """Drop a leading or trailing title part (split at `` | `` or `` - ``) repeated on most pages."""
+    """Drop a leading or trailing title part (split at `` | `` or `` - ``) common to most pages."""
     parts = [_TITLE_SEP.split(t) if t else [] for t in titles]
     need = max(3, share * len(titles))
     tails = Counter(p[-1].casefold() for p in parts if len(p) > 1)
@@ -169,7 +169,7 @@ def find_boilerplate(pages: list[ParsedPage], share: float) -> dict[str, int]:
 def build_records(
     ids: list[str], urls: list[str], pages: list[ParsedPage], source: str, share: float
 ) -> tuple[pd.DataFrame, dict[str, int], list[int]]:
-    """Page records with boilerplate removed; also the boilerplate and the empty pages' positions."""
+    """Page records without boilerplate; also the boilerplate and the empty pages' positions."""
     boiler = find_boilerplate(pages, share)
     titles = strip_title_boilerplate([p.title for p in pages], share)
     rows, empty = [], []
@@ -244,7 +244,7 @@ def load_content(
         conn.unregister("stage_pages_df")
         added, changed, unchanged, gone = run(
             conn, "content_changes", {"source": source}
-        ).fetchall()[0]  # type: ignore[misc]
+        ).fetchall()[0]
         run(conn, "content_upsert")
         run(conn, "content_mark_gone", {"source": source})
         run(conn, "content_replace_boilerplate", {"source": source})

@@ -227,7 +227,8 @@ def luhn_valid_array(candidates: Iterable[str]) -> np.ndarray:
     doubled = matrix * 2
     doubled = np.where(doubled > 9, doubled - 9, doubled)
     terms = np.where(from_right % 2 == 1, doubled, matrix)
-    return (terms.sum(axis=1) % 10 == 0) & (lengths > 0)
+    valid: np.ndarray = (terms.sum(axis=1) % 10 == 0) & (lengths > 0)
+    return valid
 
 
 # --------------------------------------------------------------------------------------------

@@ -80,7 +80,7 @@ class ReviewResult:
 
 def latest_window(conn: duckdb.DuckDBPyConnection, tz: str = "UTC") -> Window:
     """The ISO week of the newest search in the workspace."""
-    first, last, n = run(conn, "review_log_span").fetchall()[0]  # type: ignore[misc]
+    first, last, n = run(conn, "review_log_span").fetchall()[0]
     if not n:
         raise StageOrderError("no searches are loaded; run 'querygap add-log' first")
     return week_of(last, tz)

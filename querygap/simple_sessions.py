@@ -22,7 +22,7 @@ def fill_simple_sessions(
 
     Returns whether it filled the table. See sql/propose.sql ``sessions_fill_simple``.
     """
-    if run(conn, "sessions_count").fetchall()[0][0]:  # type: ignore[index]
+    if run(conn, "sessions_count").fetchall()[0][0]:
         return False
     with transaction(conn):
         run(

@@ -18,7 +18,8 @@ FOOT = "<footer><p>Kestrel Valley Water Ltd, registered office: 1 River Row.</p>
 def page(title: str, body: str, extra: str = "") -> str:
     return (
         f"<!doctype html><html><head><title>{title} | Kestrel Valley Water</title></head>"
-        f"<body><header>{NAV}</header><main><h1>{title}</h1>{body}<p>Was this page helpful?</p></main>"
+        f"<body><header>{NAV}</header><main><h1>{title}</h1>{body}"
+        "<p>Was this page helpful?</p></main>"
         f"<div class='share'><p>Share this page with a friend</p></div>{extra}{FOOT}"
         "<script>track()</script></body></html>"
     )
