@@ -42,13 +42,27 @@ PROPOSAL_CSV_COLUMNS = [
     "evidence_json",
 ]
 GAP_COLUMNS = ["topic", "searches", "wordings", "missing_words", "example_queries", "closest_pages"]
-_MD_SPECIAL = re.compile(r"([\\`*_{}\[\]()#+\-.!|~>])")
+_MD_SPECIAL = re.compile(r"([\\`*_{}\[\]()#!|~>])")
+# ".", "-" and "+" only start a list (or a numbered list with digits) at the start of the text.
+_MD_LEADING = re.compile(r"^(\d*)([.\-+])")
+_SAFE_URL = re.compile(r"^https?://[^\s<>\\`]+$")
 
 
 def md_text(text: object) -> str:
-    """Log- or page-derived text made inert in Markdown and HTML (one line)."""
+    """Log- or page-derived text made inert in Markdown and HTML (one line).
+
+    HTML is entity-encoded; Markdown's inline markers are backslash-escaped everywhere, list
+    markers only where they would start a list, so plain words and numbers stay readable.
+    """
     flat = " ".join(str(text).split())
-    return _MD_SPECIAL.sub(r"\\\1", html.escape(flat, quote=True))
+    escaped = _MD_SPECIAL.sub(r"\\\1", html.escape(flat, quote=True))
+    return _MD_LEADING.sub(r"\1\\\2", escaped)
+
+
+def md_url(url: object) -> str:
+    """A page address as a Markdown autolink ``<https://...>``, or as inert text if it is odd."""
+    text = str(url)
+    return f"<{text}>" if _SAFE_URL.match(text) else md_text(text)
 
 
 def rules_frame(proposals: pd.DataFrame, decisions: pd.DataFrame) -> pd.DataFrame:
@@ -138,7 +152,7 @@ def gap_markdown(
             lines.append("- Closest pages (they share some words but do not answer):")
             for page in near.itertuples(index=False):
                 title = md_text(page.title or page.url)
-                lines.append(f"  - {title}: {md_text(page.url)}")
+                lines.append(f"  - {title}: {md_url(page.url)}")
         lines.append("")
     return "\n".join(lines) + "\n"
 

@@ -221,6 +221,18 @@ def test_demo_files_are_written_and_safe(demo_ws: tuple[Path, Path]) -> None:
 def test_md_text_makes_markup_inert() -> None:
     assert md_text("<img src=x onerror=alert(1)>") == "&lt;img src=x onerror=alert\\(1\\)&gt;"
     assert md_text("[a](http://x) *b*") == "\\[a\\]\\(http://x\\) \\*b\\*"
+    # List markers are escaped only where they would start a list; words stay readable.
+    assert md_text("- item") == "\\- item"
+    assert md_text("1. item") == "1\\. item"
+    assert md_text("pre-payment v2.3") == "pre-payment v2.3"
+
+
+def test_md_url_autolinks_plain_addresses_only() -> None:
+    from querygap.proposal_files import md_url
+
+    assert md_url("https://help.example.org/a-b.html") == "<https://help.example.org/a-b.html>"
+    assert md_url("javascript:alert(1)") == "javascript:alert\\(1\\)"
+    assert md_url("https://x.example/<b>") == "https://x.example/&lt;b&gt;"
 
 
 def test_rewrite_replaces_splits_and_joins() -> None:
