@@ -212,7 +212,7 @@ def band_chart(data: ReportData) -> Chart:
         go.Bar(
             x=labels,
             y=rate,
-            marker_color=[OKABE_ITO["blue"], OKABE_ITO["sky"], OKABE_ITO["orange"]],
+            marker_color=OKABE_ITO["vermillion"],  # one colour: the bars are all failure rates
             text=[f"{v:.1f}%" for v in rate],
             textposition="outside",
             showlegend=False,

@@ -45,6 +45,7 @@ th { background: var(--band); position: sticky; top: 0; cursor: pointer; }
 td.num, th.num { text-align: right; font-variant-numeric: tabular-nums; }
 td.query { overflow-wrap: break-word; word-break: normal; }
 td.wide { min-width: 24rem; }
+td.date { white-space: nowrap; }
 h3 { font-size: 1rem; margin: 1.2rem 0 .3rem; }
 .notrun { padding: .6rem .8rem; background: var(--band); border-left: 4px solid var(--rule); }
 .status-zero { color: #b34a00; font-weight: 600; }
@@ -114,23 +115,31 @@ def _missing(v: object) -> bool:
 def cell(value: object, kind: str) -> str:
     """One ``<td>``: numbers right-aligned with a ``data-v`` sort key, everything escaped."""
     if _missing(value):
-        return '<td class="num" data-v="-1">–</td>' if kind not in ("text", "wide") else "<td></td>"
+        return '<td class="num" data-v="-1">–</td>' if kind in NUMERIC else "<td></td>"
     if kind == "int":
         return f'<td class="num" data-v="{int(value)}">{int(value):,}</td>'  # type: ignore[call-overload]
     if kind == "float":
         return f'<td class="num" data-v="{float(value)}">{float(value):.3f}</td>'  # type: ignore[arg-type]
     if kind == "conf":
         return f'<td class="num" data-v="{float(value)}">{float(value):.2f}</td>'  # type: ignore[arg-type]
+    if kind == "points":  # a difference of two shares, in percentage points
+        return f'<td class="num" data-v="{float(value)}">{100 * float(value):+.1f} pts</td>'  # type: ignore[arg-type]
+    if kind == "pvalue":
+        v = float(value)  # type: ignore[arg-type]
+        return f'<td class="num" data-v="{v}">{"< 0.001" if v < 0.001 else f"{v:.3f}"}</td>'
     if kind == "pct":
         return f'<td class="num" data-v="{float(value)}">{pct(float(value))}</td>'  # type: ignore[arg-type]
     text = escape(str(value))
     if kind == "status":
         return f'<td class="status-{text}">{text}</td>'
+    if kind == "date":
+        return f'<td class="date">{text}</td>'
     if kind == "wide":
         return f'<td class="query wide">{text}</td>'
     return f'<td class="query">{text}</td>'
 
 
+NUMERIC = ("int", "float", "pct", "conf", "points", "pvalue")
 #: Most rows any table of the page shows; the CSV files hold them all.
 TABLE_ROWS = 500
 
@@ -152,9 +161,7 @@ def table(
     total = len(df)
     shown = df.iloc[:limit]
     head = "".join(
-        f'<th class="num">{escape(h)}</th>'
-        if k in ("int", "float", "pct", "conf")
-        else f"<th>{escape(h)}</th>"
+        f'<th class="num">{escape(h)}</th>' if k in NUMERIC else f"<th>{escape(h)}</th>"
         for _, h, k in cols
     )
     values = [shown[c].tolist() for c, _, _ in cols]
@@ -324,15 +331,15 @@ CHECKS_TABLE = [
     ("kind", "kind", "text"),
     ("term", "term", "text"),
     ("replacement", "replacement", "text"),
-    ("decided_at", "decided", "text"),
+    ("decided_at", "decided", "date"),
     ("before_searches", "searches before", "int"),
     ("after_searches", "searches after", "int"),
     ("failure_before", "failing before", "pct"),
     ("failure_after", "failing after", "pct"),
-    ("difference", "difference", "pct"),
-    ("p_value", "p-value", "float"),
+    ("difference", "difference", "points"),
+    ("p_value", "p-value", "pvalue"),
     ("verdict", "verdict", "text"),
-    ("reason", "reason", "wide"),
+    ("reason", "reason", "text"),
 ]
 
 SIMULATION_TABLE = [
