@@ -18,8 +18,9 @@ comparison of every query with every other:
    within distance d share a string obtained from each by at most d deletions, so only terms
    sharing such a string are compared. A deletion string shared by more than ``max_block`` terms is
    not used (it is a short string, shared by words that are no typos of one another).
-3. **Similar text.** Character 3-grams within words (scikit-learn ``TfidfVectorizer``,
-   ``analyzer='char_wb'``) weighted by tf-idf, rows of unit length, so a dot product is the cosine;
+3. **Similar text.** Character 3-grams within words (as scikit-learn's ``TfidfVectorizer`` with
+   ``analyzer='char_wb'`` forms them, computed here with sparse products) weighted by tf-idf,
+   rows of unit length, so a dot product is the cosine;
    pairs with cosine >= ``min_cosine`` are joined if they also agree on their key terms (see
    :func:`consistent_pairs`). Word order does not change these grams, so "water meter reading"
    meets "reading water meter". A gram found in more than ``gram_cap`` failing queries is left
@@ -40,7 +41,6 @@ from rapidfuzz.distance import OSA
 from rapidfuzz.process import cpdist
 from scipy import sparse
 from scipy.sparse.csgraph import connected_components
-from sklearn.feature_extraction.text import TfidfVectorizer
 
 from querygap.errors import ConfigError
 from querygap.windows import Window
@@ -226,19 +226,59 @@ def nearest_words(
     return best, examined
 
 
+def word_grams(words: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Character 3-grams of each word padded with one space each side, as scikit-learn's
+    ``char_wb`` analyzer forms them.
+
+    Returns (word index, gram index, gram texts): one pair per gram occurrence, so a gram seen
+    twice in a word appears twice. The loop runs over unique words, not over queries.
+    """
+    rows: list[int] = []
+    grams: list[str] = []
+    for k, w in enumerate(words.tolist()):
+        padded = f" {w} "
+        found = [padded[i : i + 3] for i in range(len(padded) - 2)]
+        rows.extend([k] * len(found))
+        grams.extend(found)
+    codes, uniques = pd.factorize(pd.Series(grams, dtype=object), sort=True)
+    return np.asarray(rows, np.int64), codes.astype(np.int64), np.asarray(uniques, dtype=object)
+
+
 def gram_matrix(texts: list[str], max_df: int) -> sparse.csr_matrix:
     """Unit-length tf-idf rows of character 3-grams within words (scikit-learn ``char_wb``).
 
-    Grams found in more than ``max_df`` texts are dropped before the rows are normalised
-    (scikit-learn's ``max_df`` as a count). A row left with no gram is all zero.
+    tf = occurrences of the gram in the text; idf = ln((1 + n) / (1 + df)) + 1 (smoothed, as
+    scikit-learn's ``TfidfVectorizer`` default); rows scaled to unit l2 norm. Grams found in more
+    than ``max_df`` texts are dropped before the rows are normalised (scikit-learn's ``max_df`` as
+    a count). A row left with no gram is all zero. Counts are built as (text x word) @ (word x
+    gram) sparse products, so the only Python loop is over unique words.
     """
-    vec = TfidfVectorizer(
-        analyzer="char_wb", ngram_range=(3, 3), lowercase=False, max_df=max_df, dtype=np.float64
+    n = len(texts)
+    words = pd.Series(texts, dtype=object).str.split().explode().dropna()
+    if words.empty:
+        return sparse.csr_matrix((n, 0))
+    word_codes, unique_words = pd.factorize(words, sort=False)
+    text_word = sparse.csr_matrix(
+        (np.ones(len(word_codes)), (words.index.to_numpy(np.int64), word_codes)),
+        shape=(n, len(unique_words)),
     )
-    try:
-        return vec.fit_transform(texts).tocsr()
-    except ValueError:  # no gram at all, or none left after the cap
-        return sparse.csr_matrix((len(texts), 0))
+    wi, gi, grams = word_grams(np.asarray(unique_words, dtype=object))
+    word_gram = sparse.csr_matrix(
+        (np.ones(len(wi)), (wi, gi)), shape=(len(unique_words), len(grams))
+    )
+    counts = (text_word @ word_gram).tocsc()
+    df = np.diff(counts.indptr)
+    keep = np.flatnonzero(df <= max_df)
+    if not len(keep):
+        return sparse.csr_matrix((n, 0))
+    counts = counts[:, keep]
+    idf = np.log((1.0 + n) / (1.0 + df[keep])) + 1.0
+    x = (counts @ sparse.diags(idf)).tocsr()
+    norms = np.sqrt(np.asarray(x.multiply(x).sum(axis=1)).ravel())
+    scale = np.divide(1.0, norms, out=np.zeros_like(norms), where=norms > 0)
+    x = sparse.diags(scale) @ x
+    x.sort_indices()
+    return x.tocsr()
 
 
 def similar_pairs(

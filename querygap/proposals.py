@@ -82,6 +82,10 @@ class ProposalSettings:
         al. (2006) used about 100 on a web-scale log (memory); a site log is far smaller.
     min_contexts : int, default=2
         Distinct shared query contexts a context-only synonym needs.
+    max_context_terms : int, default=100
+        A shared context held by more ok-query terms than this is not used: it is too common to
+        tell which term replaces which, and it would make the context join grow with the square
+        of the queries (the demo's largest context holds 53).
     min_confidence : float, default=0.4
         Confidence at which a candidate is convincing: a one-edit fix of a long word needs to
         rescue some searches or have reformulations behind it, a two-edit fix reformulations.
@@ -95,6 +99,7 @@ class ProposalSettings:
     min_pairs: int = 2
     min_g2: float = 10.83
     min_contexts: int = 2
+    max_context_terms: int = 100
     min_confidence: float = 0.4
     max_candidates: int = 3
 
@@ -424,7 +429,9 @@ def propose(
             "max_gap_seconds": settings.max_gap_seconds,
         },
     )
-    contexts = frame(conn, "propose_contexts", key)
+    contexts = frame(
+        conn, "propose_contexts", {**key, "max_context_terms": settings.max_context_terms}
+    )
     decisions = frame(conn, "propose_decisions")
 
     failing = failing_terms.drop_duplicates("query")[["query", "example", "searches"]]

@@ -78,9 +78,13 @@ ORDER BY a1.query, a1.next_query;
 -- name: propose_contexts
 -- Shared query contexts: an unmatched term of a failing query and a content term of an ok query
 -- whose other terms are the same ("pay invoice" / "pay bill" share the context "pay").
+-- A context held by more than $max_context_terms distinct (ok query, term) rows is left out: it
+-- is too common to say which term replaces which, and joining it would pair every failing term
+-- with every one of its terms (the join would grow with the square of the queries).
 -- Reads review_queries, query_terms.
 -- $review_id: the review
 -- $index_id: the index the review scored against
+-- $max_context_terms: most ok-query terms a shared context may hold
 WITH qt AS (
     SELECT r.query, r.status, r.searches, t.term, t.df, t.in_best
     FROM review_queries r JOIN query_terms t ON t.index_id = $index_id AND t.query = r.query
@@ -90,11 +94,14 @@ WITH qt AS (
            string_agg(b.term, ' ' ORDER BY b.term) AS context
     FROM qt a JOIN qt b ON b.query = a.query AND b.term <> a.term
     GROUP BY a.query, a.status, a.searches, a.term, a.df, a.in_best
+), ok_ctx AS (
+    SELECT * FROM ctx WHERE status = 'ok' AND df > 0
+    QUALIFY count(*) OVER (PARTITION BY context) <= $max_context_terms
 )
 SELECT f.term AS term_from, o.term AS term_to, count(DISTINCT f.context) AS contexts,
        min(f.query) AS query, min(o.query) AS other_query, sum(o.searches)::BIGINT AS other_searches
-FROM ctx f JOIN ctx o ON o.context = f.context AND o.term <> f.term
-WHERE f.status <> 'ok' AND (f.df = 0 OR NOT f.in_best) AND o.status = 'ok' AND o.df > 0
+FROM ctx f JOIN ok_ctx o ON o.context = f.context AND o.term <> f.term
+WHERE f.status <> 'ok' AND (f.df = 0 OR NOT f.in_best)
 GROUP BY f.term, o.term
 ORDER BY f.term, o.term;
 

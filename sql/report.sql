@@ -61,14 +61,41 @@ ORDER BY change, searches DESC, previous_searches DESC, query;
 -- Which of the tables added by later stages exist, with their columns. Reads information_schema.
 SELECT table_name, list(column_name ORDER BY ordinal_position) AS columns
 FROM information_schema.columns
-WHERE table_schema = 'main' AND table_name IN ('clusters', 'proposals', 'checks')
+WHERE table_schema = 'main'
+  AND table_name IN ('clusters', 'cluster_members', 'proposals', 'decision_checks', 'simulations',
+                     'simulation_rules')
 GROUP BY table_name ORDER BY table_name;
 
 -- name: report_clusters
--- The review's clusters, most failing searches first. Only run when table clusters exists.
+-- The review's clusters, most failing searches first, each with its best fix: among the rank-1
+-- proposals whose term is the key term of a member query, the one that rescues most searches.
+-- fix_rescued counts every failing search holding the fix's term (not only the cluster's);
+-- searches_with_fix: the cluster's searches whose key term has a spelling, synonym or variant
+-- proposal. Reads clusters, cluster_members, proposals. Only run when table clusters exists.
 -- $review_id: the review
-SELECT review_id, cluster_id, label, searches, queries, previous_searches, change
-FROM clusters WHERE review_id = $review_id ORDER BY searches DESC, label;
+WITH best AS (
+  SELECT term, kind, suggestion, rescued FROM proposals WHERE review_id = $review_id AND rank = 1
+), member_fix AS (
+  SELECT m.cluster_id, b.term, b.kind, b.suggestion, b.rescued, sum(m.searches) AS member_searches
+  FROM cluster_members m JOIN best b ON b.term = m.key_term
+  WHERE m.review_id = $review_id
+  GROUP BY ALL
+), ranked AS (
+  SELECT *,
+         row_number() OVER (PARTITION BY cluster_id
+                            ORDER BY rescued DESC, member_searches DESC, term) AS n,
+         count(*) OVER (PARTITION BY cluster_id) AS fixes,
+         sum(CASE WHEN kind <> 'content_gap' THEN member_searches ELSE 0 END)
+           OVER (PARTITION BY cluster_id) AS searches_with_fix
+  FROM member_fix
+)
+SELECT c.review_id, c.cluster_id, c.label, c.searches, c.queries, c.previous_searches, c.change,
+       r.kind AS fix_kind, r.term AS fix_term, r.suggestion AS fix_suggestion,
+       r.rescued::BIGINT AS fix_rescued, coalesce(r.fixes, 0)::BIGINT AS fixes,
+       coalesce(r.searches_with_fix, 0)::BIGINT AS searches_with_fix
+FROM clusters c LEFT JOIN ranked r ON r.cluster_id = c.cluster_id AND r.n = 1
+WHERE c.review_id = $review_id
+ORDER BY c.searches DESC, c.label;
 
 -- name: report_proposals
 -- The review's proposals, most rescued searches first. Only run when table proposals exists.
@@ -80,5 +107,22 @@ ORDER BY rescued DESC, searches DESC, term;
 
 -- name: report_checks
 -- Checks of accepted decisions recorded at the review. Only run when decision_checks exists.
+-- Reads decision_checks.
 -- $review_id: the review
-SELECT * FROM decision_checks WHERE review_id = $review_id ORDER BY kind, term;
+SELECT review_id, kind, term, replacement, decided_at, before_searches, after_searches,
+       failure_before, failure_after, difference, newcombe_lower, newcombe_upper, p_value,
+       verdict, reason
+FROM decision_checks WHERE review_id = $review_id ORDER BY kind, term, replacement;
+
+-- name: report_latest_simulation
+-- The review's most recent simulation of a rules file. Reads simulations.
+-- $review_id: the review
+SELECT simulation_id, rules_file, not_rejected, created_at FROM simulations
+WHERE review_id = $review_id ORDER BY created_at DESC, simulation_id LIMIT 1;
+
+-- name: report_simulation_rules
+-- The rules of one simulation with their effect, in file order. Reads simulation_rules.
+-- $simulation_id: the simulation
+SELECT line, kind, term, replacement, direction, status, effect, queries, searches,
+       fixed_searches, still_failing_searches, newly_failing_searches, regressed_searches
+FROM simulation_rules WHERE simulation_id = $simulation_id ORDER BY line;

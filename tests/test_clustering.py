@@ -249,3 +249,20 @@ def test_demo_clusters_csv(tmp_path: Path) -> None:
     text = path.read_text()
     conn.close()
     assert "'=cmd" in text and "'=cmd | x" in text  # formula cells neutralised (OWASP, CWE-1236)
+
+
+def test_gram_matrix_equals_scikit_learn_char_wb() -> None:
+    # Reference: scikit-learn's TfidfVectorizer(analyzer="char_wb", ngram_range=(3, 3),
+    # lowercase=False, max_df=<count>) with its default smoothed idf and l2 norm; columns are in
+    # sorted gram order in both, so the matrices must agree entry by entry.
+    from sklearn.feature_extraction.text import TfidfVectorizer
+
+    texts = [*synthetic_failing(3000, seed=5), "a", "aaaa aaaa", "  x  y ", "meter meter reading"]
+    for max_df in (3, 50, 10_000):
+        ref = TfidfVectorizer(
+            analyzer="char_wb", ngram_range=(3, 3), lowercase=False, max_df=max_df
+        ).fit_transform(texts)
+        got = gram_matrix(texts, max_df)
+        assert got.shape == ref.shape
+        assert abs(got - ref).max() < 1e-12
+    assert gram_matrix(["", " "], 5).shape == (2, 0)

@@ -310,3 +310,35 @@ def test_decide_command_stores_a_decision(demo_ws: tuple[Path, Path], tmp_path: 
     conn.close()
     assert [row[:2] for row in stored] == [("meeter", "accepted"), ("smartmeter", "parked")]
     assert {row[2] for row in stored} <= {"2026-W46", "2026-W47"}  # the newest review proposing it
+
+
+def test_common_contexts_are_capped_so_the_join_stays_linear(tmp_path: Path) -> None:
+    # "pay invoice" fails; "pay bill" is ok and shares the context "pay". With 5 more ok terms in
+    # "pay X" the context holds 6 ok-query terms: kept at a cap of 6, left out at a cap of 5 (the
+    # join of a context costs failing terms x ok terms, so a cap bounds it per failing term).
+    from querygap.workspace import frame as read
+
+    conn = connect(tmp_path / "ws.duckdb")
+    rows = [("pay invoice", "zero", [("pay", 3), ("invoice", 0)])]
+    rows += [
+        (f"pay {w}", "ok", [("pay", 3), (w, 2)])
+        for w in ["bill", "fee", "tax", "due", "rent", "cost"]
+    ]
+    for query, status, terms in rows:
+        conn.execute(
+            "INSERT INTO review_queries VALUES ('R', ?, ?, 1, 1, ?, 0, 0, NULL, 0, 0, 0, 0)",
+            [query, query, status],
+        )
+        for pos, (term, df) in enumerate(terms):
+            conn.execute(
+                "INSERT INTO query_terms VALUES ('ix', ?, ?, ?, ?, ?)",
+                [query, pos, term, df, df > 0],
+            )
+    key = {"review_id": "R", "index_id": "ix"}
+    kept = read(conn, "propose_contexts", {**key, "max_context_terms": 6})
+    dropped = read(conn, "propose_contexts", {**key, "max_context_terms": 5})
+    conn.close()
+    assert sorted(kept.loc[kept["term_from"] == "invoice", "term_to"]) == sorted(
+        ["bill", "fee", "tax", "due", "rent", "cost"]
+    )
+    assert dropped.loc[dropped["term_from"] == "invoice"].empty

@@ -10,6 +10,7 @@ from querygap.report.charts import all_charts
 from querygap.report.data import load_report_data
 from querygap.report.html import EXPORTS, render_page
 from querygap.report.svg import write_svgs
+from querygap.safe_csv import write_csv
 
 __all__ = ["write_report"]
 
@@ -17,11 +18,15 @@ __all__ = ["write_report"]
 def write_report(conn: duckdb.DuckDBPyConnection, review_id: str, out_dir: Path) -> Path:
     """Write ``out_dir/index.html`` (and ``out_dir/charts/*.svg``) for a flagged review.
 
-    Run it after the exports, so the page links every export file present in ``out_dir``.
+    Run it after the exports, so the page links every export file present in ``out_dir``. Also
+    writes ``out_dir/changes.csv`` (every row of the page's changes table, which shows at most
+    :data:`querygap.report.html.TABLE_ROWS`) when there is a previous window.
     """
     data = load_report_data(conn, review_id)
     charts = all_charts(data)
     out_dir.mkdir(parents=True, exist_ok=True)
+    if data.changes is not None:
+        write_csv(data.changes, out_dir / "changes.csv")
     svgs = [p.name for p in write_svgs(charts, out_dir / "charts")]
     present = [name for name, _ in EXPORTS if (out_dir / name).is_file()]
     path = out_dir / "index.html"

@@ -13,7 +13,7 @@ import numpy as np
 import pandas as pd
 import plotly.graph_objects as go
 
-from querygap.report.data import ReportData
+from querygap.report.data import ReportData, profile_points
 
 OKABE_ITO = {
     "black": "#000000",
@@ -110,12 +110,26 @@ def zipf_slope(searches: np.ndarray) -> float:
     return float(np.polyfit(np.log(rank), np.log(searches), 1)[0])
 
 
+def share_colour(share: float) -> str:
+    """A colour between Okabe-Ito blue (share 0) and vermillion (share 1), as #rrggbb."""
+    a = np.array([0x00, 0x72, 0xB2], dtype=float)
+    b = np.array([0xD5, 0x5E, 0x00], dtype=float)
+    r, g, bl = np.round(a + (b - a) * min(max(float(share), 0.0), 1.0)).astype(int)
+    return f"#{r:02x}{g:02x}{bl:02x}"
+
+
 def profile_chart(data: ReportData) -> Chart:
-    """Rank against searches on log-log axes, one marker per unique query, coloured by status."""
+    """Rank against searches on log-log axes, coloured by status.
+
+    One marker per unique query, up to the cap of :func:`querygap.report.data.profile_points`;
+    beyond it the head keeps one marker per query and the rest are log-spaced rank bins, coloured
+    by their failing share.
+    """
     p = data.profile
+    points = profile_points(p)
     fig = go.Figure()
     for status in ("ok", "low", "zero"):
-        part = p[p["status"] == status]
+        part = points[points["status"] == status]
         fig.add_trace(
             go.Scatter(
                 name=status,
@@ -125,6 +139,32 @@ def profile_chart(data: ReportData) -> Chart:
                 marker={"color": STATUS_COLOURS[status], "size": 5, "opacity": 0.8},
                 text=part["query"].map(escape),  # plotly reads tags in text
                 hovertemplate="%{text}<br>rank %{x}, %{y} searches<extra></extra>",
+            )
+        )
+    binned = points[points["status"] == "bin"]
+    if len(binned):
+        hover = [
+            f"ranks {r.rank_from:,}–{r.rank_to:,} ({r.queries:,} queries)<br>"
+            f"{r.total_searches:,.0f} searches, {pct(r.failing_share)} failing"
+            for r in binned.itertuples(index=False)
+        ]
+        fig.add_trace(
+            go.Scatter(
+                name="rank bin (colour: failing share)",
+                x=binned["rank"],
+                y=binned["searches"],
+                mode="markers",
+                marker={
+                    "symbol": "square",
+                    "size": 6,
+                    "color": binned["failing_share"],
+                    "cmin": 0,
+                    "cmax": 1,
+                    "colorscale": [[0, STATUS_COLOURS["ok"]], [1, STATUS_COLOURS["zero"]]],
+                    "colorbar": {"title": {"text": "failing share"}, "len": 0.6},
+                },
+                text=hover,
+                hovertemplate="%{text}<br>mean %{y:.2f} searches per query<extra></extra>",
             )
         )
     title = "How searches spread over queries (Zipf's law)"
@@ -144,10 +184,21 @@ def profile_chart(data: ReportData) -> Chart:
             f"{b.loc['tail', 'queries']:,} make the last fifth. "
             f"Fitted slope {slope:.2f} (Zipf's law predicts about -1)."
         )
+        if len(binned):
+            reading += (
+                f" The {len(points) - len(binned):,} most searched queries are drawn one by one, "
+                f"the other {n - len(points) + len(binned):,} as {len(binned):,} rank bins "
+                "at their mean searches per query."
+            )
+    colours = [
+        STATUS_COLOURS[s] if s in STATUS_COLOURS else share_colour(f)
+        for s, f in zip(points["status"], points["failing_share"], strict=True)
+    ]
     series = {
-        "rank": p["rank"].tolist(),
-        "searches": p["searches"].tolist(),
-        "status": p["status"].tolist(),
+        "rank": points["rank"].tolist(),
+        "searches": points["searches"].tolist(),
+        "status": points["status"].tolist(),
+        "colour": colours,
     }
     return Chart("profile", title, x_label, y_label, reading, fig, series)
 
@@ -161,7 +212,7 @@ def band_chart(data: ReportData) -> Chart:
         go.Bar(
             x=labels,
             y=rate,
-            marker_color=[OKABE_ITO["blue"], OKABE_ITO["sky"], OKABE_ITO["orange"]],
+            marker_color=OKABE_ITO["vermillion"],  # one colour: the bars are all failure rates
             text=[f"{v:.1f}%" for v in rate],
             textposition="outside",
             showlegend=False,
@@ -223,7 +274,11 @@ def changes_chart(data: ReportData) -> Chart | None:
 
 
 def clusters_chart(data: ReportData, top: int = 15) -> Chart | None:
-    """Horizontal bars: failing searches of the largest clusters (and rescued, where known)."""
+    """Horizontal bars: failing searches of the largest clusters, and those a proposal reaches.
+
+    The second bar is the cluster's searches whose key term has a spelling, synonym or variant
+    proposal (column searches_with_fix), drawn when the column is there.
+    """
     c = data.clusters
     if c is None or "searches" not in c or "label" not in c:
         return None
@@ -238,19 +293,20 @@ def clusters_chart(data: ReportData, top: int = 15) -> Chart | None:
             marker_color=OKABE_ITO["vermillion"],
         )
     )
-    if "rescued" in c:
+    if "searches_with_fix" in c:
         fig.add_trace(
             go.Bar(
-                name="rescued by the proposals",
+                name="of them, with a proposed fix for their term",
                 y=labels,
-                x=c["rescued"],
+                x=c["searches_with_fix"],
                 orientation="h",
                 marker_color=OKABE_ITO["green"],
+                width=0.45,  # drawn inside the bar of all its failing searches
             )
         )
     title = f"The {len(c)} largest clusters of failing searches"
     x_label, y_label = "failing searches in the window", "cluster"
-    _layout(fig, title, x_label, y_label, barmode="group")
+    _layout(fig, title, x_label, y_label, barmode="overlay")
     fig.update_layout(height=max(360, 28 * len(c) + 120))
     total = int(data.clusters["searches"].sum())
     share = c["searches"].sum() / total if total else 0.0
@@ -259,6 +315,9 @@ def clusters_chart(data: ReportData, top: int = 15) -> Chart | None:
         f"holds {int(c['searches'].iloc[-1]):,} "
         f"failing searches; these {len(c)} clusters hold {pct(share)} of the clustered ones."
     )
+    if "searches_with_fix" in data.clusters and total:
+        reached = int(data.clusters["searches_with_fix"].sum())
+        reading += f" Proposed fixes reach {reached:,} of them ({pct(reached / total)})."
     return Chart("clusters", title, x_label, y_label, reading, fig)
 
 

@@ -2,8 +2,10 @@
 
 Tables read: reviews, review_queries, searches, query_scores, query_terms, documents (through
 :func:`querygap.review.failing_queries`), and, when they exist and hold rows for the review, the
-tables of the later stages: ``clusters``, ``proposals`` and ``checks``. A missing or empty table
-gives ``None``, which the page shows as "not run for this review".
+tables of the later stages: ``clusters`` (with ``cluster_members`` and ``proposals`` for each
+cluster's best fix), ``proposals``, ``decision_checks`` and the latest of ``simulations`` (with its
+``simulation_rules``). A missing or empty table gives ``None``, which the page shows as "not run
+for this review".
 """
 
 from __future__ import annotations
@@ -69,6 +71,8 @@ class ReportData:
     clusters: pd.DataFrame | None
     proposals: pd.DataFrame | None
     checks: pd.DataFrame | None
+    simulation: dict[str, object] | None = None  # simulation_id, rules_file, not_rejected, ...
+    simulation_rules: pd.DataFrame | None = None
 
 
 def totals_of(conn: duckdb.DuckDBPyConnection, review_id: str) -> Totals:
@@ -131,6 +135,69 @@ def band_rates(profile: pd.DataFrame) -> pd.DataFrame:
     return out
 
 
+def profile_points(
+    profile: pd.DataFrame, max_points: int = 5000, individual: int = 2000, bins: int = 300
+) -> pd.DataFrame:
+    """The frequency profile cut to at most about ``max_points`` points for the chart.
+
+    Up to ``max_points`` queries every query is one point. Beyond that, the head (capped at
+    ``individual`` queries) keeps one point per query and the rest is cut into ``bins``
+    log-spaced rank bins. A bin's point sits at the geometric mean of its first and last rank,
+    at the mean searches per query of the bin (so it lies on the rank-frequency curve), and
+    carries its failing share = zero or low searches / searches of the bin.
+
+    Returns rank, rank_from, rank_to, queries, searches (per query), total_searches,
+    failing_share, status ('zero', 'low', 'ok', or 'bin' for a bin) and query (the text of a
+    single query, '' for a bin).
+    """
+    n = len(profile)
+    searches = profile["searches"].to_numpy(dtype=float)
+    failing = np.where(profile["status"].isin(FAILING).to_numpy(), searches, 0.0)
+    if n <= max_points:
+        keep = n
+    else:
+        head = int((profile["band"] == "head").sum()) if "band" in profile else 0
+        keep = max(1, min(head, individual))
+    top = profile.iloc[:keep]
+    single = pd.DataFrame(
+        {
+            "rank": top["rank"].to_numpy(dtype=float),
+            "rank_from": top["rank"].to_numpy(),
+            "rank_to": top["rank"].to_numpy(),
+            "queries": 1,
+            "searches": searches[:keep],
+            "total_searches": searches[:keep],
+            "failing_share": np.divide(
+                failing[:keep], searches[:keep], out=np.zeros(keep), where=searches[:keep] > 0
+            ),
+            "status": top["status"].astype(str).to_numpy(),
+            "query": top["query"].astype(str).to_numpy(),
+        }
+    )
+    if keep >= n:
+        return single
+    # Bin edges as 0-based positions: log-spaced ranks keep+1 .. n, each bin at least one query.
+    edges = np.unique(np.round(np.geomspace(keep + 1, n + 1, bins + 1)).astype(np.int64)) - 1
+    starts, ends = edges[:-1], edges[1:]
+    total = np.add.reduceat(searches[keep:], starts - keep)
+    fail = np.add.reduceat(failing[keep:], starts - keep)
+    count = ends - starts
+    binned = pd.DataFrame(
+        {
+            "rank": np.sqrt((starts + 1.0) * ends),
+            "rank_from": starts + 1,
+            "rank_to": ends,
+            "queries": count,
+            "searches": total / count,
+            "total_searches": total,
+            "failing_share": np.divide(fail, total, out=np.zeros(len(total)), where=total > 0),
+            "status": "bin",
+            "query": "",
+        }
+    )
+    return pd.concat([single, binned], ignore_index=True)
+
+
 def optional_tables(conn: duckdb.DuckDBPyConnection) -> dict[str, list[str]]:
     """The later-stage tables present in the workspace, with their columns."""
     df = frame(conn, "report_optional_tables")
@@ -146,6 +213,20 @@ def _optional(
     return df.drop(columns="review_id") if len(df) else None
 
 
+def latest_simulation(
+    conn: duckdb.DuckDBPyConnection, present: dict[str, list[str]], review_id: str
+) -> tuple[dict[str, object] | None, pd.DataFrame | None]:
+    """The review's most recent simulation and its rules, or (None, None) when there is none."""
+    if "review_id" not in present.get("simulations", []) or "simulation_rules" not in present:
+        return None, None
+    sim = frame(conn, "report_latest_simulation", {"review_id": review_id})
+    if sim.empty:
+        return None, None
+    head = sim.iloc[0].to_dict()
+    rules = frame(conn, "report_simulation_rules", {"simulation_id": head["simulation_id"]})
+    return head, rules
+
+
 def load_report_data(conn: duckdb.DuckDBPyConnection, review_id: str) -> ReportData:
     """Everything the page shows for ``review_id``; the review must have been flagged."""
     rows = frame(conn, "report_review", {"review_id": review_id})
@@ -159,6 +240,7 @@ def load_report_data(conn: duckdb.DuckDBPyConnection, review_id: str) -> ReportD
     previous_id = str(prev_rows["review_id"].iloc[0]) if len(prev_rows) else None
     profile = frequency_profile(frame(conn, "report_profile", {"review_id": review_id}))
     present = optional_tables(conn)
+    simulation, simulation_rules = latest_simulation(conn, present, review_id)
     return ReportData(
         review_id=review_id,
         start=start,
@@ -178,4 +260,6 @@ def load_report_data(conn: duckdb.DuckDBPyConnection, review_id: str) -> ReportD
         clusters=_optional(conn, present, "clusters", review_id),
         proposals=_optional(conn, present, "proposals", review_id),
         checks=_optional(conn, present, "decision_checks", review_id),
+        simulation=simulation,
+        simulation_rules=simulation_rules,
     )

@@ -41,9 +41,12 @@ a { color: var(--accent); }
 table { border-collapse: collapse; width: 100%; font-size: .9rem; }
 th, td { padding: .25rem .5rem; border-bottom: 1px solid var(--rule); text-align: left;
          vertical-align: top; }
-th { background: var(--band); position: sticky; top: 0; cursor: pointer; white-space: nowrap; }
+th { background: var(--band); position: sticky; top: 0; cursor: pointer; }
 td.num, th.num { text-align: right; font-variant-numeric: tabular-nums; }
-td.query { overflow-wrap: anywhere; }
+td.query { overflow-wrap: break-word; word-break: normal; }
+td.wide { min-width: 24rem; }
+td.date { white-space: nowrap; }
+h3 { font-size: 1rem; margin: 1.2rem 0 .3rem; }
 .notrun { padding: .6rem .8rem; background: var(--band); border-left: 4px solid var(--rule); }
 .status-zero { color: #b34a00; font-weight: 600; }
 .status-low { color: #8a5a00; }
@@ -89,6 +92,7 @@ EXPORTS = (
     ("gaps.md", "content gaps for writers"),
     ("gaps.csv", "content gaps as a table"),
     ("clusters.csv", "clusters of failing queries"),
+    ("changes.csv", "failing queries new, recurring and resolved since the previous window"),
 )
 
 FAILING_TABLE = [
@@ -111,52 +115,74 @@ def _missing(v: object) -> bool:
 def cell(value: object, kind: str) -> str:
     """One ``<td>``: numbers right-aligned with a ``data-v`` sort key, everything escaped."""
     if _missing(value):
-        return '<td class="num" data-v="-1">–</td>' if kind != "text" else "<td></td>"
+        return '<td class="num" data-v="-1">–</td>' if kind in NUMERIC else "<td></td>"
     if kind == "int":
         return f'<td class="num" data-v="{int(value)}">{int(value):,}</td>'  # type: ignore[call-overload]
     if kind == "float":
         return f'<td class="num" data-v="{float(value)}">{float(value):.3f}</td>'  # type: ignore[arg-type]
+    if kind == "conf":
+        return f'<td class="num" data-v="{float(value)}">{float(value):.2f}</td>'  # type: ignore[arg-type]
+    if kind == "points":  # a difference of two shares, in percentage points
+        return f'<td class="num" data-v="{float(value)}">{100 * float(value):+.1f} pts</td>'  # type: ignore[arg-type]
+    if kind == "pvalue":
+        v = float(value)  # type: ignore[arg-type]
+        return f'<td class="num" data-v="{v}">{"< 0.001" if v < 0.001 else f"{v:.3f}"}</td>'
     if kind == "pct":
         return f'<td class="num" data-v="{float(value)}">{pct(float(value))}</td>'  # type: ignore[arg-type]
     text = escape(str(value))
     if kind == "status":
         return f'<td class="status-{text}">{text}</td>'
+    if kind == "date":
+        return f'<td class="date">{text}</td>'
+    if kind == "wide":
+        return f'<td class="query wide">{text}</td>'
     return f'<td class="query">{text}</td>'
 
 
-def table(df: pd.DataFrame, columns: Sequence[tuple[str, str, str]], table_id: str) -> str:
-    """A sortable table of ``df``'s ``columns`` given as (column, header, kind)."""
+NUMERIC = ("int", "float", "pct", "conf", "points", "pvalue")
+#: Most rows any table of the page shows; the CSV files hold them all.
+TABLE_ROWS = 500
+
+
+def table(
+    df: pd.DataFrame,
+    columns: Sequence[tuple[str, str, str]],
+    table_id: str,
+    limit: int = TABLE_ROWS,
+    full: str | None = None,
+) -> str:
+    """A sortable table of ``df``'s first ``limit`` rows, ``columns`` as (column, header, kind).
+
+    When rows are left out, a note above the table says how many it shows of how many and links
+    ``full`` (the export holding them all) when given. ``data-rows`` is the number of rows shown,
+    ``data-total`` the number of rows of ``df``.
+    """
     cols = [c for c in columns if c[0] in df.columns]
+    total = len(df)
+    shown = df.iloc[:limit]
     head = "".join(
-        f'<th class="num">{escape(h)}</th>'
-        if k in ("int", "float", "pct")
-        else f"<th>{escape(h)}</th>"
+        f'<th class="num">{escape(h)}</th>' if k in NUMERIC else f"<th>{escape(h)}</th>"
         for _, h, k in cols
     )
-    values = [df[c].tolist() for c, _, _ in cols]
+    values = [shown[c].tolist() for c, _, _ in cols]
     body = "\n".join(
         "<tr>" + "".join(cell(v[i], k) for v, (_, _, k) in zip(values, cols, strict=True)) + "</tr>"
-        for i in range(len(df))
+        for i in range(len(shown))
     )
+    note = ""
+    if len(shown) < total:
+        where = (
+            f' All {total:,} are in <a href="{escape(full)}">{escape(full)}</a>.' if full else ""
+        )
+        note = (
+            f'<p class="muted capped" data-for="{table_id}">Showing the first {len(shown):,} of '
+            f"{total:,} rows.{where}</p>"
+        )
     return (
-        f'<div class="scroll"><table class="sortable" id="{table_id}" data-rows="{len(df)}">'
+        f'{note}<div class="scroll"><table class="sortable" id="{table_id}" '
+        f'data-rows="{len(shown)}" data-total="{total}">'
         f"<thead><tr>{head}</tr></thead><tbody>\n{body}\n</tbody></table></div>"
     )
-
-
-def generic_columns(df: pd.DataFrame, first: Sequence[str]) -> list[tuple[str, str, str]]:
-    """Columns of a later stage's table: the contract's first, then the rest, kind from dtype."""
-    order = [c for c in first if c in df.columns] + [c for c in df.columns if c not in first]
-    out = []
-    for c in order:
-        if pd.api.types.is_integer_dtype(df[c]):
-            kind = "int"
-        elif pd.api.types.is_float_dtype(df[c]):
-            kind = "float"
-        else:
-            kind = "text"
-        out.append((c, c.replace("_", " "), kind))
-    return out
 
 
 def chart_block(chart: Chart | None) -> str:
@@ -235,43 +261,143 @@ def _not_run(what: str) -> str:
     return f'<p class="notrun">{escape(what)}: {NOT_RUN}.</p>'
 
 
+CLUSTERS_TABLE = [
+    ("label", "cluster", "text"),
+    ("searches", "failing searches", "int"),
+    ("queries", "queries", "int"),
+    ("previous_searches", "previous window", "int"),
+    ("change", "change", "int"),
+    ("best_fix", "best fix", "text"),
+    ("fix_rescued", "rescued by the fix", "int"),
+    ("searches_with_fix", "searches with a fix", "int"),
+    ("fixes", "fixes", "int"),
+]
+
+PROPOSALS_TABLE = [
+    ("kind", "kind", "text"),
+    ("term", "term", "text"),
+    ("suggestion", "suggestion", "text"),
+    ("searches", "searches", "int"),
+    ("rescued", "rescued", "int"),
+    ("confidence", "confidence", "conf"),
+    ("evidence", "evidence", "wide"),
+]
+
+
+def fix_text(kind: object, term: object, suggestion: object) -> str | None:
+    """A proposal as one phrase: 'spelling: recieve → receive', 'content gap: solar'."""
+    if _missing(kind):
+        return "none proposed"
+    if kind == "content_gap" or not suggestion:
+        return f"content gap: {term}"
+    return f"{kind}: {term} → {suggestion}"
+
+
 def clusters_section(data: ReportData, chart: Chart | None) -> str:
     if data.clusters is None:
         return _not_run("Clustering")
     c = data.clusters.copy()
-    p = data.proposals
-    if p is not None and "cluster_id" in p.columns and "cluster_id" in c.columns:
-        fixes = (
-            p.assign(
-                fix=p["kind"].astype(str)
-                + ": "
-                + p["term"].astype(str)
-                + " → "
-                + p["suggestion"].astype(str)
-            )
-            .groupby("cluster_id")
-            .agg(fixes=("fix", "; ".join), rescued_by_fixes=("rescued", "sum"))
-        )
-        c = c.merge(fixes, how="left", left_on="cluster_id", right_index=True)
-        note = ""
-    else:
-        note = '<p class="muted">Proposals are not linked to clusters in this workspace.</p>'
-    cols = generic_columns(c, ["label", "searches", "queries", "fixes", "rescued_by_fixes"])
-    cols = [x for x in cols if x[0] != "cluster_id"]
-    return chart_block(chart) + note + table(c, cols, "clusters-table")
+    if "fix_kind" in c:
+        c["best_fix"] = [
+            fix_text(k, t, s)
+            for k, t, s in zip(c["fix_kind"], c["fix_term"], c["fix_suggestion"], strict=True)
+        ]
+    note = (
+        '<p class="muted">Each cluster is named after its most searched query. Best fix: of '
+        "the proposals for the terms the cluster's queries were "
+        "grouped on, the one that rescues most searches. Rescued by the fix counts every "
+        "failing search holding its term, in this cluster or another; searches with a fix: the "
+        "cluster's searches whose term has a spelling, synonym or variant proposal.</p>"
+    )
+    return (
+        chart_block(chart) + note + table(c, CLUSTERS_TABLE, "clusters-table", full="clusters.csv")
+    )
 
 
 def proposals_section(data: ReportData) -> str:
     if data.proposals is None:
         return _not_run("Proposals")
-    first = ["kind", "term", "suggestion", "searches", "rescued", "confidence", "evidence"]
-    return table(data.proposals, generic_columns(data.proposals, first), "proposals-table")
+    p = data.proposals.copy()
+    p["kind"] = p["kind"].astype(str).str.replace("_", " ", regex=False)
+    intro = (
+        '<p class="muted">The best candidate for each term, most rescued searches first. '
+        "Rescued: searches whose query scores ok when re-scored with the fix applied. "
+        "Confidence runs from 0 to 1.</p>"
+    )
+    return intro + table(p, PROPOSALS_TABLE, "proposals-table", full="proposals.csv")
+
+
+CHECKS_TABLE = [
+    ("kind", "kind", "text"),
+    ("term", "term", "text"),
+    ("replacement", "replacement", "text"),
+    ("decided_at", "decided", "date"),
+    ("before_searches", "searches before", "int"),
+    ("after_searches", "searches after", "int"),
+    ("failure_before", "failing before", "pct"),
+    ("failure_after", "failing after", "pct"),
+    ("difference", "difference", "points"),
+    ("p_value", "p-value", "pvalue"),
+    ("verdict", "verdict", "text"),
+    ("reason", "reason", "text"),
+]
+
+SIMULATION_TABLE = [
+    ("line", "line", "int"),
+    ("kind", "kind", "text"),
+    ("term", "term", "text"),
+    ("replacement", "replacement", "text"),
+    ("status", "status", "text"),
+    ("effect", "effect", "text"),
+    ("queries", "queries", "int"),
+    ("searches", "searches", "int"),
+    ("fixed_searches", "fixed", "int"),
+    ("still_failing_searches", "still failing", "int"),
+    ("newly_failing_searches", "newly failing", "int"),
+    ("regressed_searches", "regressed", "int"),
+]
 
 
 def checks_section(data: ReportData) -> str:
-    if data.checks is None:
-        return _not_run("Fix check")
-    return table(data.checks, generic_columns(data.checks, []), "checks-table")
+    if data.checks is None and data.simulation is None:
+        return _not_run("Fix check") + (
+            '<p class="muted">Decisions accepted with querygap decide are checked at the first '
+            "review after them; querygap simulate re-scores this review's queries with the rules "
+            "of rules.csv applied.</p>"
+        )
+    parts = []
+    if data.checks is not None:
+        checks = data.checks.copy()
+        if "decided_at" in checks:
+            checks["decided_at"] = pd.to_datetime(checks["decided_at"]).dt.strftime("%Y-%m-%d")
+        parts.append(
+            "<h3>Accepted decisions, before and after</h3>"
+            '<p class="muted">Failure rates of the searches each decision targets, in equal '
+            "windows before and after it was decided.</p>"
+            + table(checks, CHECKS_TABLE, "checks-table")
+        )
+    else:
+        parts.append(
+            _not_run("Check of accepted decisions")
+            + '<p class="muted">Decisions accepted with querygap decide are checked at the '
+            "first review after them.</p>"
+        )
+    sim = data.simulation
+    if sim is not None and data.simulation_rules is not None:
+        which = "every rule not rejected" if sim.get("not_rejected") else "accepted rules only"
+        parts.append(
+            "<h3>Latest simulation of a rules file</h3>"
+            f'<p class="muted">{escape(str(sim.get("rules_file", "")))} ({escape(which)}), '
+            f"re-scored against this review's queries. Searches per outcome.</p>"
+            + table(data.simulation_rules, SIMULATION_TABLE, "simulation-table")
+        )
+    else:
+        parts.append(
+            _not_run("Simulation of a rules file")
+            + '<p class="muted">querygap simulate re-scores this review\'s queries with the '
+            "rules of rules.csv applied.</p>"
+        )
+    return "".join(parts)
 
 
 def changes_section(data: ReportData, chart: Chart | None) -> str:
@@ -286,7 +412,13 @@ def changes_section(data: ReportData, chart: Chart | None) -> str:
         ("status", "status", "status"),
         ("previous_status", f"status in {data.previous.review_id}", "status"),
     ]
-    return chart_block(chart) + table(data.changes, cols, "changes-table")
+    # Most searched first (in either window), so a capped table keeps the changes that matter.
+    weight = data.changes[["searches", "previous_searches"]].max(axis=1)
+    rows = data.changes.assign(_w=weight).sort_values(
+        ["_w", "change", "query"], ascending=[False, True, True], kind="stable"
+    )
+    intro = '<p class="muted">Most searched first, in this window or the previous one.</p>'
+    return chart_block(chart) + intro + table(rows, cols, "changes-table", full="changes.csv")
 
 
 def bands_table(data: ReportData) -> str:
@@ -357,7 +489,7 @@ def render_page(
             "Failing queries",
             f'<p class="muted">The rows of failing_queries.csv, most searched first '
             f"({len(data.failing):,} unique queries). Click a header to sort.</p>"
-            + table(data.failing, FAILING_TABLE, "failing-table"),
+            + table(data.failing, FAILING_TABLE, "failing-table", full="failing_queries.csv"),
         ),
         ("checks", "Fix check", checks_section(data)),
         ("files", "Files in this folder", exports_list(exports, svgs)),

@@ -137,7 +137,7 @@ def chart_svgs(charts: dict[str, Chart]) -> dict[str, str]:
         # Failing queries drawn last, so the ok ones do not hide them.
         status = np.asarray(d["status"])
         order = np.argsort(status != "ok", kind="stable")
-        colours = [STATUS_COLOURS[s] for s in status[order]]
+        colours = np.asarray(d["colour"])[order].tolist()
         out["query_profile.svg"] = loglog_svg(
             c.title,
             c.x_label,
