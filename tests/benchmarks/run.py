@@ -353,7 +353,13 @@ def main(argv: list[str] | None = None) -> int:
     print(f"workload ready in {time.perf_counter() - w0:.1f} s in {workload}", flush=True)
     common = ["--size", size.name, "--workload", str(workload), "--folder", str(folder)]
     review_rows, review_peak, s1 = run_child([*common, "--child", "review"])
-    scorer_rows, scorer_peak, s2 = run_child([*common, "--child", "scorers", "--skip", args.skip])
+    scorer_rows, scorer_peak, s2 = [], 0, 0
+    if s1:
+        print("the review failed (see above); the scorers need its index, so they are left out")
+    else:
+        scorer_rows, scorer_peak, s2 = run_child(
+            [*common, "--child", "scorers", "--skip", args.skip]
+        )
     rows = review_rows + scorer_rows
     failed = bool(s1 or s2) or any(r.note.startswith("DISAGREES") for r in scorer_rows)
 
