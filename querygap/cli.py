@@ -278,14 +278,10 @@ def review(
     conn = connect(db)
     window = pick_window(conn, week, start, end, tz)
     folder = out_dir / window.review_id
-    with stderr.status("Reviewing...") as status:
-        result = run_review(
-            conn,
-            window,
-            settings,
-            folder,
-            progress=lambda stage: status.update(f"Reviewing: {stage}"),
-        )
+    from querygap.stage_progress import StageProgress
+
+    with StageProgress(stderr) as stages:
+        result = run_review(conn, window, settings, folder, progress=stages)
     rows = failing_queries(conn, result.review_id, result.index_id).to_dict("records")
     if as_json:
         out.emit_json(stdout, out.review_payload(result))

@@ -172,8 +172,19 @@ def rewrite(sequences: pd.DataFrame, candidates: pd.DataFrame) -> pd.DataFrame:
     is_second = (full["second"] != "") & (full["term"] == full["second"]) & (prev == full["first"])
     full["out"] = np.where(is_first, full["suggestion"], np.where(is_second, "", full["term"]))
     full = full[full["out"] != ""]
-    out = full.groupby(["cand", "row"], sort=False)["out"].agg(" ".join).reset_index()
-    return out.rename(columns={"out": "rewritten"})
+    # The rows are sorted by (cand, row, pos): join each group's terms with one C-level
+    # reduction over object strings (no per-group pandas work).
+    cand_ids, row_ids = full["cand"].to_numpy(), full["row"].to_numpy()
+    if not len(full):
+        return pd.DataFrame({"cand": cand_ids, "row": row_ids, "rewritten": np.empty(0, object)})
+    starts = np.flatnonzero(
+        np.r_[True, (cand_ids[1:] != cand_ids[:-1]) | (row_ids[1:] != row_ids[:-1])]
+    )
+    words = full["out"].to_numpy(dtype=object) + " "
+    joined = pd.Series(np.add.reduceat(words, starts), dtype=object).str.slice(0, -1)
+    return pd.DataFrame(
+        {"cand": cand_ids[starts], "row": row_ids[starts], "rewritten": joined.to_numpy()}
+    )
 
 
 def measure(

@@ -1,34 +1,40 @@
 """Time a whole weekly review and the scorer alone on a seeded workload.
 
-    python tests/benchmarks/run.py --size S      # 10k pages, 100k queries, 2M log rows
-    python tests/benchmarks/run.py --size M      # 100k pages, 1M queries, 20M log rows
+    python tests/benchmarks/workload.py --size M --folder /tmp/qg-M   # once, beforehand
+    python tests/benchmarks/run.py --size M --workload /tmp/qg-M
 
-Prints one table (wall s, CPU s, peak RSS, queries/s, postings/s), then one line per reference,
+The workload is written beforehand (``--workload`` reuses a finished one, else a temp folder is
+filled first), so its memory is not counted. The review (log load included) and the scorers
+each run in a child process; this process samples the child's resident set size (with its
+children) with psutil every 20 ms and keeps the peak of each stage. Prints one table (wall s,
+CPU s, peak RSS, queries/s, postings/s), then one line per reference,
 ``speedup_vs_<name>: <ratio>`` (the reference's wall time over ours for the scorer alone).
 Nothing here is gated on a time; the exit status is 1 only when a method disagrees with ours on a
-best score (beyond 1e-5) or on a top-1 page (ties allowed).
+best score (beyond 1e-5) or on a top-1 page (ties allowed), or a child fails.
 """
 
 from __future__ import annotations
 
 import argparse
-import importlib.util
-import resource
+import json
+import subprocess
 import sys
 import tempfile
+import threading
 import time
 from collections.abc import Callable
 from dataclasses import dataclass
 from pathlib import Path
 
 import numpy as np
+import psutil
 import scipy.sparse as sp
 
 sys.path.insert(0, str(Path(__file__).resolve().parent))
 sys.path.insert(0, str(Path(__file__).resolve().parents[2]))
 
 import baselines  # noqa: E402
-from workload import SIZES, generate  # noqa: E402
+from workload import SIZES, ensure  # noqa: E402
 
 from querygap import scoring_kernel  # noqa: E402
 from querygap.indexing import load_index  # noqa: E402
@@ -39,14 +45,7 @@ from querygap.scoring import query_terms  # noqa: E402
 from querygap.settings import ReviewSettings  # noqa: E402
 from querygap.weighting import query_weights  # noqa: E402
 from querygap.windows import week_of  # noqa: E402
-from querygap.workspace import connect  # noqa: E402
-
-LATER_STAGES = {"cluster": "clustering", "propose": "proposals", "report": "report"}
-
-
-def peak_rss_gb() -> float:
-    """Peak resident set size of this process so far, GB (Linux reports ru_maxrss in KiB)."""
-    return resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024**2
+from querygap.workspace import connect, memory_limit  # noqa: E402
 
 
 @dataclass
@@ -66,55 +65,6 @@ class Rows(list):
     def append(self, row: Row) -> None:
         super().append(row)
         print(f"  .. {row.name}: {row.wall:.2f} s", file=sys.stderr, flush=True)
-
-
-class Clock:
-    """Wall and CPU seconds (this process, all threads) of a block, and the peak RSS after it."""
-
-    def __init__(self) -> None:
-        self.rows: list[Row] = Rows()
-
-    def time(self, name: str, func: Callable[[], object], queries: int = 0, postings: int = 0):
-        w0, c0 = time.perf_counter(), time.process_time()
-        value = func()
-        self.rows.append(
-            Row(
-                name,
-                time.perf_counter() - w0,
-                time.process_time() - c0,
-                peak_rss_gb(),
-                queries,
-                postings,
-            )
-        )
-        return value
-
-
-class StageClock:
-    """A review's progress callback that turns stage announcements into timed rows."""
-
-    def __init__(self, clock: Clock, prefix: str) -> None:
-        self.clock, self.prefix, self.open = clock, prefix, None
-
-    def __call__(self, stage: str) -> None:
-        stage = stage.split(":")[0]
-        if self.open and self.open[0] == stage:
-            return
-        self.close()
-        self.open = (stage, time.perf_counter(), time.process_time())
-
-    def close(self) -> None:
-        if self.open:
-            name, w0, c0 = self.open
-            self.clock.rows.append(
-                Row(
-                    f"{self.prefix}{name}",
-                    time.perf_counter() - w0,
-                    time.process_time() - c0,
-                    peak_rss_gb(),
-                )
-            )
-            self.open = None
 
 
 def best_of(triple, n: int) -> tuple[np.ndarray, np.ndarray]:
@@ -157,13 +107,41 @@ def agree(name: str, triple, ours: tuple[np.ndarray, np.ndarray], weights, posti
     return "agrees"
 
 
-def review_week(clock: Clock, conn, log: Path, week: str, settings, out: Path, tag: str) -> object:
-    clock.time(f"{tag}load logs", lambda: load_log(conn, log, LoadOptions()))
-    stages = StageClock(clock, tag)
-    window = week_of(_monday(week), "UTC")
-    result = run_review(conn, window, settings, out / window.review_id, progress=stages)
-    stages.close()
-    return result
+def emit(kind: str, **fields: object) -> None:
+    """One line of the child's report to the parent (JSON after a keyword)."""
+    print(kind, json.dumps(fields), flush=True)
+
+
+class ChildStages:
+    """A review's progress callback: announces each stage to the parent and times it."""
+
+    def __init__(self, prefix: str) -> None:
+        self.prefix, self.open = prefix, None
+
+    def __call__(self, stage: str) -> None:
+        stage = stage.split(":")[0]
+        if self.open and self.open[0] == stage:
+            return
+        self.close()
+        emit("stage", name=self.prefix + stage)
+        self.open = (stage, time.perf_counter(), time.process_time())
+
+    def timed(self, stage: str, func: Callable[[], object]) -> object:
+        self(stage)
+        value = func()
+        self.close()
+        return value
+
+    def close(self) -> None:
+        if self.open:
+            name, w0, c0 = self.open
+            emit(
+                "row",
+                name=self.prefix + name,
+                wall=time.perf_counter() - w0,
+                cpu=time.process_time() - c0,
+            )
+            self.open = None
 
 
 def _monday(week: str):
@@ -172,80 +150,57 @@ def _monday(week: str):
     return datetime.strptime(week + "-1", "%G-W%V-%u")
 
 
-def main(argv: list[str] | None = None) -> int:
-    parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
-    parser.add_argument("--size", choices=sorted(SIZES), default="S")
-    parser.add_argument("--folder", type=Path, help="work folder (default: a temp folder)")
-    parser.add_argument(
-        "--skip", default="", help="comma-separated references to leave out, e.g. hand_written"
-    )
-    args = parser.parse_args(argv)
-    skip = {s for s in args.skip.split(",") if s}
-    size = SIZES[args.size]
-    tmp = tempfile.TemporaryDirectory(prefix=f"qg-bench-{size.name}-")
-    folder = args.folder or Path(tmp.name)
-    clock = Clock()
-    print(
-        f"size {size.name}: {size.pages:,} pages, {size.queries:,} unique queries, "
-        f"{size.rows:,} log rows; numba {'on' if scoring_kernel.HAVE_NUMBA else 'off'}"
-        + (
-            f" ({scoring_kernel.numba.get_num_threads()} threads)"
-            if scoring_kernel.HAVE_NUMBA
-            else ""
-        ),
-        flush=True,
-    )
-    w0 = time.perf_counter()
-    work = generate(size, folder / "input")
-    print(f"workload written in {time.perf_counter() - w0:.1f} s to {folder}", flush=True)
-    if scoring_kernel.HAVE_NUMBA:  # load the cached compiled kernel outside the timings
+def child_review(work, folder: Path) -> None:
+    """Week 1 (load logs, load content, every review stage), then week 2 (index reused)."""
+    settings = ReviewSettings()
+    conn = connect(folder / "ws.duckdb")
+    warm_kernel()
+    for week, log, tag in (
+        (work.week1_id, work.week1, ""),
+        (work.week2_id, work.week2, "week 2: "),
+    ):
+        t0, c0 = time.perf_counter(), time.process_time()
+        stages = ChildStages(tag)
+        stages.timed("load logs", lambda log=log: load_log(conn, log, LoadOptions()))
+        if not tag:
+            stages.timed(
+                "load content", lambda: load_content(conn, work.content, ContentOptions("site"))
+            )
+        window = week_of(_monday(week), "UTC")
+        result = run_review(conn, window, settings, folder / "reports" / window.review_id, stages)
+        stages.close()
+        emit(
+            "total",
+            name=f"= whole review, {'week 2' if tag else 'week 1'}",
+            wall=time.perf_counter() - t0,
+            cpu=time.process_time() - c0,
+            queries=result.queries,
+            scored_now=result.scored_now,
+            index_reused=result.index_reused,
+            timings=result.timings,
+            report_bytes=result.report_html.stat().st_size if result.report_html else 0,
+        )
+    conn.close()
+
+
+def warm_kernel() -> None:
+    """Load the cached compiled kernel outside the timings."""
+    if scoring_kernel.HAVE_NUMBA:
         tiny = sp.csr_matrix(np.ones((1, 1)))
         scoring_kernel.top_k_scores(tiny, tiny, 1)
 
-    settings = ReviewSettings()
+
+def child_scorers(work, folder: Path, skip: set[str]) -> None:
+    """The scorer alone on week 1's unique queries and index: ours, then every reference."""
     conn = connect(folder / "ws.duckdb")
-    t_review = time.perf_counter()
-    n0 = len(clock.rows)
-    clock.time("load logs", lambda: load_log(conn, work.week1, LoadOptions()))
-    clock.time("load content", lambda: load_content(conn, work.content, ContentOptions("site")))
-    stages = StageClock(clock, "")
+    warm_kernel()
     window = week_of(_monday(work.week1_id), "UTC")
-    result = run_review(conn, window, settings, folder / "reports" / window.review_id, stages)
-    stages.close()
-    for stage, module in LATER_STAGES.items():
-        if importlib.util.find_spec(f"querygap.{module}") is None:
-            clock.rows.append(Row(stage, 0, 0, peak_rss_gb(), note="skipped: not built yet"))
-        else:
-            clock.rows.append(Row(stage, 0, 0, peak_rss_gb(), note="present; no timing hook"))
-    review_wall = time.perf_counter() - t_review
-    review_cpu = sum(r.cpu for r in clock.rows[n0:])
-    clock.rows.append(Row("= whole review, week 1", review_wall, review_cpu, peak_rss_gb()))
-    n_queries = result.queries
-    for row in clock.rows[n0:]:
-        row.queries = n_queries if row.wall and not row.note else 0
-
-    t2 = time.perf_counter()
-    n1 = len(clock.rows)
-    second = review_week(
-        clock, conn, work.week2, work.week2_id, settings, folder / "reports", "week 2: "
-    )
-    clock.rows.append(
-        Row(
-            "= whole review, week 2",
-            time.perf_counter() - t2,
-            sum(r.cpu for r in clock.rows[n1:]),
-            peak_rss_gb(),
-            note=f"index reused: {second.index_reused}; "
-            f"scored {second.scored_now:,} new of {second.queries:,}",
-        )
-    )
-
-    # The scorer alone: the same unique queries and index, every method in this process.
     index = load_index(conn)
     queries = conn.execute(
         "SELECT DISTINCT query FROM searches WHERE searched_at >= ? AND searched_at < ?",
         [window.start, window.end],
     ).df()["query"]
+    conn.close()
     qt = query_terms(queries, index)
     weights = query_weights(qt.known, index.idf, qt.unknown, index.n_docs, index.settings.weighting)
     weights = sp.csr_matrix(weights)
@@ -253,46 +208,177 @@ def main(argv: list[str] | None = None) -> int:
     postings = index.vectors.T.tocsr()
     nq = weights.shape[0]
     touched = int((postings.indptr[weights.indices + 1] - postings.indptr[weights.indices]).sum())
-    ours = clock.time(
-        "scorer: ours", lambda: scoring_kernel.top_k_scores(weights, postings, 5), nq, touched
-    )
-    ours_best = best_of(ours, nq)
-    ours_row = clock.rows[-1]
-    references = {
+    methods = {
+        "ours": lambda: scoring_kernel.top_k_scores(weights, postings, 5),
         "numpy_path": lambda: scoring_kernel.top_k_scores(weights, postings, 5, use_compiled=False),
         "hand_written": lambda: baselines.hand_written(weights, postings, 5, chunk=2000),
         "sparse_dot_topn": lambda: baselines.sparse_dot_topn(weights, postings, 5),
         "scatter_add": lambda: baselines.scatter_add(weights, postings),
         "postings_pass": lambda: baselines.postings_pass(weights, postings),
     }
-    failed = False
-    ratios = {}
-    for name, func in references.items():
+    ours_best = None
+    for name, func in methods.items():
         if name in skip:
             continue
-        out = clock.time(f"scorer: {name}", func, nq, touched)
-        row = clock.rows[-1]
-        if name == "postings_pass":
-            row.note = "lower bound, not a scorer"
+        emit("stage", name=f"scorer: {name}")
+        w0, c0 = time.perf_counter(), time.process_time()
+        out = func()
+        wall, cpu = time.perf_counter() - w0, time.process_time() - c0
+        if name == "ours":
+            ours_best = best_of(out, nq)
+            note = f"{touched:,} postings touched"
+        elif name == "postings_pass":
+            note = "lower bound, not a scorer"
         else:
-            row.note = agree(name, out, ours_best, weights, postings)
-            failed |= row.note != "agrees"
-        ratios[name] = row.wall / ours_row.wall
-    ours_row.note = f"{touched:,} postings touched"
+            note = agree(name, out, ours_best, weights, postings)
+        del out
+        emit(
+            "row",
+            name=f"scorer: {name}",
+            wall=wall,
+            cpu=cpu,
+            queries=nq,
+            postings=touched,
+            note=note,
+        )
+
+
+class Sampler(threading.Thread):
+    """Peak RSS (bytes) of a process and its children, sampled every ``every`` s, per stage."""
+
+    def __init__(self, pid: int, every: float = 0.02) -> None:
+        super().__init__(daemon=True)
+        self.proc, self.every = psutil.Process(pid), every
+        self.stage = "(start)"
+        self.peaks: dict[str, int] = {}
+        self.peak = 0
+        self.done = threading.Event()
+
+    def rss(self) -> int:
+        try:
+            procs = [self.proc, *self.proc.children(recursive=True)]
+            return sum(p.memory_info().rss for p in procs)
+        except psutil.Error:
+            return 0
+
+    def run(self) -> None:
+        while not self.done.is_set():
+            value = self.rss()
+            self.peak = max(self.peak, value)
+            self.peaks[self.stage] = max(self.peaks.get(self.stage, 0), value)
+            time.sleep(self.every)
+
+
+def run_child(args: list[str]) -> tuple[list[Row], int, int]:
+    """Run this file as a child with ``args``; its rows (with per-stage peak RSS), peak, status."""
+    cmd = [sys.executable, str(Path(__file__).resolve()), *args]
+    proc = subprocess.Popen(cmd, stdout=subprocess.PIPE, text=True)
+    sampler = Sampler(proc.pid)
+    sampler.start()
+    rows = Rows()
+    assert proc.stdout is not None
+    for line in proc.stdout:
+        kind, _, payload = line.partition(" ")
+        if kind not in {"stage", "row", "total"}:
+            print(line, end="", file=sys.stderr)
+            continue
+        data = json.loads(payload)
+        if kind == "stage":
+            sampler.stage = data["name"]
+            continue
+        if kind == "total":
+            note = (
+                f"index reused: {data['index_reused']}; scored {data['scored_now']:,} new of "
+                f"{data['queries']:,}; report {data['report_bytes'] / 1e6:.1f} MB"
+            )
+            rows.append(Row(data["name"], data["wall"], data["cpu"], sampler.peak / 1e9, note=note))
+            for r in rows[:-1]:
+                if not r.queries and not r.name.startswith("="):
+                    r.queries = data["queries"]
+            continue
+        rows.append(
+            Row(
+                data["name"],
+                data["wall"],
+                data["cpu"],
+                sampler.peaks.get(data["name"], 0) / 1e9,
+                data.get("queries", 0),
+                data.get("postings", 0),
+                data.get("note", ""),
+            )
+        )
+    status = proc.wait()
+    sampler.done.set()
+    sampler.join()
+    return rows, sampler.peak, status
+
+
+def main(argv: list[str] | None = None) -> int:
+    parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    parser.add_argument("--size", choices=sorted(SIZES), default="S")
+    parser.add_argument("--workload", type=Path, help="workload folder (reused when finished)")
+    parser.add_argument("--folder", type=Path, help="work folder (default: a temp folder)")
+    parser.add_argument(
+        "--skip", default="", help="comma-separated references to leave out, e.g. hand_written"
+    )
+    parser.add_argument("--child", choices=["review", "scorers"], help=argparse.SUPPRESS)
+    args = parser.parse_args(argv)
+    skip = {s for s in args.skip.split(",") if s}
+    size = SIZES[args.size]
+    if args.child:
+        work = ensure(size, args.workload)
+        if args.child == "review":
+            child_review(work, args.folder)
+        else:
+            child_scorers(work, args.folder, skip)
+        return 0
+
+    tmp = tempfile.TemporaryDirectory(prefix=f"qg-bench-{size.name}-")
+    folder = args.folder or Path(tmp.name)
+    folder.mkdir(parents=True, exist_ok=True)
+    workload = args.workload or folder / "input"
+    print(
+        f"size {size.name}: {size.pages:,} pages, {size.queries:,} unique queries, "
+        f"{size.rows:,} log rows; numba {'on' if scoring_kernel.HAVE_NUMBA else 'off'}"
+        + (
+            f" ({scoring_kernel.numba.get_num_threads()} threads)"
+            if scoring_kernel.HAVE_NUMBA
+            else ""
+        )
+        + f"; DuckDB memory limit {memory_limit()}",
+        flush=True,
+    )
+    w0 = time.perf_counter()
+    ensure(size, workload)
+    print(f"workload ready in {time.perf_counter() - w0:.1f} s in {workload}", flush=True)
+    common = ["--size", size.name, "--workload", str(workload), "--folder", str(folder)]
+    review_rows, review_peak, s1 = run_child([*common, "--child", "review"])
+    scorer_rows, scorer_peak, s2 = [], 0, 0
+    if s1:
+        print("the review failed (see above); the scorers need its index, so they are left out")
+    else:
+        scorer_rows, scorer_peak, s2 = run_child(
+            [*common, "--child", "scorers", "--skip", args.skip]
+        )
+    rows = review_rows + scorer_rows
+    failed = bool(s1 or s2) or any(r.note.startswith("DISAGREES") for r in scorer_rows)
 
     print()
     print(
         f"{'stage':34} {'wall s':>8} {'CPU s':>8} {'peak RSS GB':>11} {'queries/s':>11} "
         f"{'postings/s':>11}  note"
     )
-    for r in clock.rows:
+    for r in rows:
         qps = f"{r.queries / r.wall:,.0f}" if r.queries and r.wall else ""
         pps = f"{r.postings / r.wall:.3g}" if r.postings and r.wall else ""
         print(f"{r.name:34} {r.wall:8.2f} {r.cpu:8.2f} {r.rss:11.2f} {qps:>11} {pps:>11}  {r.note}")
     print()
-    for name, ratio in ratios.items():
-        print(f"speedup_vs_{name}: {ratio:.2f}")
-    conn.close()
+    print(f"peak_rss_review_gb: {review_peak / 1e9:.2f}")
+    print(f"peak_rss_scorers_gb: {scorer_peak / 1e9:.2f}")
+    ours = next((r for r in scorer_rows if r.name == "scorer: ours"), None)
+    for r in scorer_rows:
+        if ours and r is not ours and ours.wall:
+            print(f"speedup_vs_{r.name.removeprefix('scorer: ')}: {r.wall / ours.wall:.2f}")
     tmp.cleanup()
     return 1 if failed else 0
 

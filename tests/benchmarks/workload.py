@@ -192,3 +192,39 @@ def generate(size: Size, folder: Path, seed: int = 20250303) -> Workload:
     week2 = folder / "week2.csv"
     write_log(rng, week2_q, size.rows // 4, WEEK1 + timedelta(days=7), week2)
     return Workload(size, content, week1, week2, "2025-W10", "2025-W11")
+
+
+def ensure(size: Size, folder: Path, seed: int = 20250303) -> Workload:
+    """The workload of ``size`` in ``folder``: reused when a finished one is there, else written.
+
+    A file ``done-<size>-<seed>`` marks a finished workload, so an interrupted one is rewritten.
+    """
+    mark = folder / f"done-{size.name}-{seed}"
+    if mark.exists():
+        return Workload(
+            size,
+            folder / "content.csv",
+            folder / "week1.csv",
+            folder / "week2.csv",
+            "2025-W10",
+            "2025-W11",
+        )
+    work = generate(size, folder, seed)
+    mark.write_text("finished\n")
+    return work
+
+
+def main(argv: list[str] | None = None) -> None:
+    """Write a workload beforehand: ``python workload.py --size M --folder /tmp/qg-M``."""
+    import argparse
+
+    parser = argparse.ArgumentParser(description=main.__doc__)
+    parser.add_argument("--size", choices=sorted(SIZES), default="S")
+    parser.add_argument("--folder", type=Path, required=True)
+    args = parser.parse_args(argv)
+    work = ensure(SIZES[args.size], args.folder)
+    print(f"workload {work.size.name} in {args.folder}")
+
+
+if __name__ == "__main__":
+    main()
