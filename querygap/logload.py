@@ -200,7 +200,15 @@ def load_log(conn: duckdb.DuckDBPyConnection, path: Path, options: LoadOptions) 
         return LoadResult(
             str(path), int(known[0]), True, 0, 0, 0, 0, {}, layout.mapping, layout.ignored
         )
-    return _load_staged(conn, path, layout, sha, options)
+    try:
+        return _load_staged(conn, path, layout, sha, options)
+    except duckdb.OutOfMemoryException as exc:
+        raise InputError(
+            f"{path}: loading needs more memory than DuckDB may use "
+            f"({str(exc).splitlines()[0][:120]}); set QUERYGAP_MEMORY_LIMIT higher, e.g. 4GB"
+        ) from None
+    finally:
+        conn.execute("SET preserve_insertion_order = true")
 
 
 def _load_staged(
@@ -212,6 +220,9 @@ def _load_staged(
         conn.execute(f"DROP TABLE IF EXISTS {table}")
     try:
         conn.execute(f"CREATE OR REPLACE TEMP TABLE stage_read AS {read_sql}")
+        # stage_read's rowids now hold the file order; later statements may reorder freely,
+        # which lets DuckDB spill them to disk.
+        conn.execute("SET preserve_insertion_order = false")
     except duckdb.Error as exc:
         first_line = str(exc).splitlines()[0]
         if "gzip" in first_line.lower():
@@ -294,9 +305,10 @@ def _load_staged(
     conn.execute("CREATE OR REPLACE TEMP TABLE stage_key_map AS SELECT * FROM stage_key_map_df")
     conn.unregister("stage_key_map_df")
 
+    run(conn, "stage_rows", {"file_id": file_id})
+    run(conn, "stage_number_repeats")
     # Staging used temp tables only; from here on the workspace changes, all or nothing.
     with transaction(conn):
-        run(conn, "stage_rows", {"file_id": file_id})
         run(conn, "store_duplicates", {"file_id": file_id})
         run(conn, "store_new_searches")
         run(conn, "store_typed_rejects", {"file_id": file_id})

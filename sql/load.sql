@@ -131,8 +131,21 @@ WITH rows AS (
     ) AS fingerprint
     FROM rows
 )
-SELECT *, row_number() OVER (PARTITION BY fingerprint ORDER BY line)::INTEGER AS occurrence
-FROM printed;
+SELECT *, 1 AS occurrence FROM printed;
+
+-- name: stage_number_repeats
+-- Number the rows that share a fingerprint within the file (1, 2, ... in line order); every other
+-- row keeps occurrence 1. Repeats are rare, so the window runs over few rows and a log of tens of
+-- millions of rows stays within DuckDB's memory limit. Reads and writes temp table stage_rows.
+UPDATE stage_rows SET occurrence = n.occurrence
+FROM (
+    SELECT line, row_number() OVER (PARTITION BY fingerprint ORDER BY line)::INTEGER AS occurrence
+    FROM stage_rows
+    WHERE fingerprint IN (
+        SELECT fingerprint FROM stage_rows GROUP BY fingerprint HAVING count(*) > 1
+    )
+) n
+WHERE stage_rows.line = n.line;
 
 -- name: store_new_searches
 -- Insert the staged rows that no loaded file already holds. Reads stage_rows; writes searches.
