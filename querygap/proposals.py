@@ -37,9 +37,10 @@ of any candidate of its terms). Rejected decisions are never proposed again.
 Only the candidates whose rescued searches can change a result are re-scored, so the results
 are those of re-scoring every candidate: confidence <= prior, so a candidate whose prior is under
 ``min_confidence`` or with fewer than ``min_searches`` searches can never be convincing; of those,
-only the candidates of content-gap terms count (for the topic's confidence), and only while
-their prior exceeds the best confidence of the term's measured candidates (best prior first, then
-the rest that can still beat it). Every distinct rewritten query is scored once.
+the others count only through a content-gap topic's confidence, the highest confidence over its
+terms' candidates, so they are re-scored in rounds (the best 1, 2, 4, ... priors of each topic)
+and only while their prior exceeds the best confidence found for their topic. Every distinct
+rewritten query is scored once per round.
 """
 
 from __future__ import annotations
@@ -142,22 +143,32 @@ def covered_terms(good: pd.DataFrame) -> set[str]:
     return set(good["term"]) | {w for t in good["term"] for w in t.split(" ")}
 
 
+def term_topics(topics: pd.DataFrame) -> pd.Series:
+    """The topic of each gap term, indexed by term."""
+    if topics.empty:
+        return pd.Series(dtype=np.int64)
+    words = topics["terms"].str.split(" ").explode()
+    return pd.Series(topics["topic"].to_numpy()[words.index.to_numpy()], index=words.to_numpy())
+
+
 def measure_what_counts(
     cands: pd.DataFrame,
+    failing_terms: pd.DataFrame,
     failing: pd.DataFrame,
     sequences: pd.DataFrame,
     index: Index,
     thresholds: dict[str, float],
     eligible: pd.DataFrame,
     settings: ProposalSettings,
-) -> tuple[pd.DataFrame, pd.DataFrame, pd.Series]:
+) -> tuple[pd.DataFrame, pd.DataFrame, pd.DataFrame, pd.DataFrame]:
     """Measure the candidates whose rescued searches can change a result (module docstring).
 
     Returns
     -------
-    (cands, good, gaps): every candidate with searches, queries, rescued (0 when not re-scored)
-    and confidence (exact for every candidate that may be proposed, and its maximum exact for
-    every gap term); the proposed fixes (:func:`select_fixes`); the content-gap terms.
+    (cands, good, topics, topic_queries): every candidate with searches, queries, rescued (0
+    when not re-scored) and confidence (exact for every candidate that may be proposed, and its
+    maximum exact over the terms of every gap topic); the proposed fixes (:func:`select_fixes`);
+    the content-gap topics and their queries (:func:`querygap.gap_topics.gap_topics`).
     """
     n = failing["searches"].to_numpy()
     counts = volume(sequences, cands, n)
@@ -184,22 +195,29 @@ def measure_what_counts(
     rescore((bound >= settings.min_confidence) & (cands["searches"] >= settings.min_searches))
     good = select_fixes(cands, settings)
     gaps = gap_terms(eligible, covered_terms(good), settings)
-    # A gap's confidence needs the best confidence of its terms' candidates: measure the best
-    # prior of each term first, then only those whose prior can still beat what was found.
-    for first_only in (True, False):
-        best = cands.groupby("term")["confidence"].max()
+    # A gap topic's confidence needs the best confidence of its terms' candidates: measure the
+    # best priors of each topic first (1, then 2, 4, ... per round), and after that only the
+    # candidates whose prior can still beat the best confidence found for their topic.
+    topics, topic_queries = gap_topics(failing_terms, pd.Index(gaps))
+    topic_of = term_topics(topics)
+    topic = pd.Series(topic_of.reindex(cands["term"]).to_numpy(), index=cands.index)
+    size = 1
+    while True:
+        best = cands["confidence"].groupby(topic).max()
         pending = (
             ~measured
-            & cands["term"].isin(gaps)
+            & topic.notna()
             & (cands["searches"] > 0)
-            & (bound > best.reindex(cands["term"]).to_numpy())
+            & (bound > best.reindex(topic).to_numpy())
         )
-        if first_only:
-            order = bound[pending].sort_values(ascending=False, kind="mergesort")
-            heads = cands.loc[order.index, "term"].drop_duplicates().index
-            pending = pd.Series(cands.index.isin(heads), index=cands.index)
-        rescore(pending)
-    return cands, good, gaps
+        if not pending.any():
+            break
+        order = pd.DataFrame({"topic": topic[pending], "bound": bound[pending]})
+        order = order.sort_values("bound", ascending=False, kind="mergesort")
+        heads = order[order.groupby("topic").cumcount() < size].index
+        rescore(pd.Series(cands.index.isin(heads), index=cands.index))
+        size *= 2
+    return cands, good, topics, topic_queries
 
 
 @dataclass
@@ -268,11 +286,10 @@ def propose(
         indicator=True,
     )["_merge"].eq("both")
     cands = cands[~gone.to_numpy()].reset_index(drop=True)
-    cands, good, gaps = measure_what_counts(
-        cands, failing, occ, index, thresholds, eligible, settings
+    cands, good, topics, topic_queries = measure_what_counts(
+        cands, failing_terms, failing, occ, index, thresholds, eligible, settings
     )
     best_conf = cands.groupby("term")["confidence"].max()
-    topics, topic_queries = gap_topics(failing_terms, pd.Index(gaps))
     if not topics.empty:
         topics["confidence"] = topic_confidence(topics, best_conf)
         gap_rejected = set(rejected.loc[rejected["kind"] == "content_gap", "term"])
