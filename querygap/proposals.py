@@ -46,6 +46,7 @@ rewritten query is scored once per round.
 from __future__ import annotations
 
 import json
+from collections.abc import Callable
 from dataclasses import dataclass
 
 import duckdb
@@ -192,31 +193,48 @@ def measure_what_counts(
             measured[mask] = True
         cands["confidence"] = confidence(cands, settings)
 
-    rescore((bound >= settings.min_confidence) & (cands["searches"] >= settings.min_searches))
+    def in_rounds(group: pd.Series, wanted: pd.Series, can_count: Callable[[], pd.Series]) -> None:
+        """Re-score the wanted candidates best prior first (1, 2, 4, ... per group and round)
+        while ``can_count()`` says their result can still matter."""
+        size = 1
+        while (pending := wanted & ~measured & can_count()).any():
+            order = pd.DataFrame({"group": group[pending], "bound": bound[pending]})
+            order = order.sort_values("bound", ascending=False, kind="mergesort")
+            heads = order[order.groupby("group").cumcount() < size].index
+            rescore(pd.Series(cands.index.isin(heads), index=cands.index))
+            size *= 2
+
+    may_convince = (bound >= settings.min_confidence) & (cands["searches"] >= settings.min_searches)
+    from_contexts = cands["how"] == "contexts"
+    rescore(may_convince & ~from_contexts)
+    # A context-only synonym is proposed only for a term with no other fix, only when at least
+    # half as confident as the term's best and among its best max_candidates.
+    fixed = cands.loc[convincing(cands, settings) & ~from_contexts, "term"]
+    ctx_wanted = may_convince & from_contexts & ~cands["term"].isin(fixed)
+
+    def may_rank() -> pd.Series:
+        conv = convincing(cands, settings) & ctx_wanted
+        top = cands[conv].sort_values("confidence", ascending=False, kind="mergesort")
+        nth = top.groupby("term").cumcount()
+        best = top[nth == 0].set_index("term")["confidence"]
+        last = top[nth == settings.max_candidates - 1].set_index("term")["confidence"]
+        floor = pd.concat([0.5 * best, last], axis=1).max(axis=1)
+        return bound >= floor.reindex(cands["term"]).fillna(-np.inf).to_numpy()
+
+    in_rounds(cands["term"], ctx_wanted, may_rank)
     good = select_fixes(cands, settings)
     gaps = gap_terms(eligible, covered_terms(good), settings)
-    # A gap topic's confidence needs the best confidence of its terms' candidates: measure the
-    # best priors of each topic first (1, then 2, 4, ... per round), and after that only the
-    # candidates whose prior can still beat the best confidence found for their topic.
+    # A gap topic's confidence is the best confidence of its terms' candidates: the others
+    # count only while their prior can beat the best confidence found for their topic.
     topics, topic_queries = gap_topics(failing_terms, pd.Index(gaps))
     topic_of = term_topics(topics)
     topic = pd.Series(topic_of.reindex(cands["term"]).to_numpy(), index=cands.index)
-    size = 1
-    while True:
+
+    def may_beat() -> pd.Series:
         best = cands["confidence"].groupby(topic).max()
-        pending = (
-            ~measured
-            & topic.notna()
-            & (cands["searches"] > 0)
-            & (bound > best.reindex(topic).to_numpy())
-        )
-        if not pending.any():
-            break
-        order = pd.DataFrame({"topic": topic[pending], "bound": bound[pending]})
-        order = order.sort_values("bound", ascending=False, kind="mergesort")
-        heads = order[order.groupby("topic").cumcount() < size].index
-        rescore(pd.Series(cands.index.isin(heads), index=cands.index))
-        size *= 2
+        return bound > best.reindex(topic).to_numpy()
+
+    in_rounds(topic, topic.notna() & (cands["searches"] > 0), may_beat)
     return cands, good, topics, topic_queries
 
 
