@@ -35,11 +35,17 @@ terms that occur in the same queries form one topic, with confidence 1 - (the hi
 of any candidate of its terms). Rejected decisions are never proposed again.
 
 Only the candidates whose rescued searches can change a result are re-scored, so the results
-are those of re-scoring every candidate: confidence <= prior, so a candidate whose prior is under
-``min_confidence`` or with fewer than ``min_searches`` searches can never be convincing; of those,
-the others count only through a content-gap topic's confidence, the highest confidence over its
-terms' candidates, so they are re-scored in rounds (the best 1, 2, 4, ... priors of each topic)
-and only while their prior exceeds the best confidence found for their topic. Every distinct
+are those of re-scoring every candidate. Since confidence <= prior:
+
+- a candidate whose prior is under ``min_confidence``, or with fewer than ``min_searches``
+  searches, is never convincing;
+- a context-only synonym of a term that has another convincing fix is never proposed, and one
+  whose prior is under half the term's best confidence, or under its ``max_candidates``-th best,
+  can no longer be; they are re-scored best prior first, while they can still be proposed;
+- the rest count only through a content-gap topic's confidence (the highest over its terms'
+  candidates): re-scored best prior first, only while their prior exceeds the topic's best.
+
+"Best prior first" runs in rounds of the best 1, 2, 4, ... per term or topic. Each distinct
 rewritten query is scored once per round.
 """
 
