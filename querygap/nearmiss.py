@@ -45,8 +45,9 @@ def spelling_candidates(
 ) -> pd.DataFrame:
     """Content terms within the allowed edit distance of each term, best first.
 
-    All terms are compared with the whole vocabulary at once (``rapidfuzz.process.cdist``, in
-    chunks of ``chunk`` terms, with a distance cut-off so far pairs cost little).
+    The terms of one length L are compared at once (``rapidfuzz.process.cdist``, in chunks of
+    ``chunk`` terms, with a distance cut-off) with the content terms of length L - allowed to
+    L + allowed only: the distance is never below the difference in length.
 
     Parameters
     ----------
@@ -72,26 +73,47 @@ def spelling_candidates(
     choices = vocab["term"].to_numpy(object)
     if not len(words) or not len(choices):
         return pd.DataFrame({c: [] for c in columns})
+    # The distance is at least the difference in length: a word of length L is compared only
+    # with the content terms of length L - allowed .. L + allowed.
+    lengths = np.fromiter((len(w) for w in words), np.int64, len(words))
+    choice_len = np.fromiter((len(c) for c in choices), np.int64, len(choices))
+    by_len = np.argsort(choice_len, kind="stable")
+    sorted_len = choice_len[by_len]
     parts = []
-    for start in range(0, len(words), chunk):
-        block = words[start : start + chunk]
-        dist = process.cdist(
-            block, choices, scorer=OSA.distance, score_cutoff=2, dtype=np.int8, workers=-1
-        )
-        ok = (dist <= allowed[start : start + chunk, None]) & (dist > 0)
-        r, c = np.nonzero(ok)
-        parts.append(
-            pd.DataFrame(
-                {
-                    "term": block[r],
-                    "suggestion": choices[c],
-                    "distance": dist[r, c].astype(np.int64),
-                    "allowed": allowed[start + r],
-                    "df": vocab["df"].to_numpy()[c],
-                    "ok_searches": vocab["ok_searches"].to_numpy()[c],
-                }
+    for length in np.unique(lengths):
+        mine = np.flatnonzero(lengths == length)
+        edits = int(allowed[mine[0]])
+        lo = np.searchsorted(sorted_len, length - edits, side="left")
+        hi = np.searchsorted(sorted_len, length + edits, side="right")
+        near = by_len[lo:hi]
+        if not len(near):
+            continue
+        for start in range(0, len(mine), chunk):
+            rows = mine[start : start + chunk]
+            dist = process.cdist(
+                words[rows],
+                choices[near],
+                scorer=OSA.distance,
+                score_cutoff=2,
+                dtype=np.int8,
+                workers=-1,
             )
-        )
+            r, c = np.nonzero((dist <= edits) & (dist > 0))
+            c_vocab = near[c]
+            parts.append(
+                pd.DataFrame(
+                    {
+                        "term": words[rows][r],
+                        "suggestion": choices[c_vocab],
+                        "distance": dist[r, c].astype(np.int64),
+                        "allowed": allowed[rows][r],
+                        "df": vocab["df"].to_numpy()[c_vocab],
+                        "ok_searches": vocab["ok_searches"].to_numpy()[c_vocab],
+                    }
+                )
+            )
+    if not parts:
+        return pd.DataFrame({c: [] for c in columns})
     found = pd.concat(parts, ignore_index=True)
     # Tie-breaks that need no data: typos seldom touch the first letter (from memory), and a
     # candidate sharing more letters in order (fewer insertions + deletions) is closer.

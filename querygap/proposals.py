@@ -13,8 +13,8 @@ and proposal_examples. A term is *unmatched* in a failing (zero or low) query wh
   ``min_pairs`` times and its signed Dunning G^2 reaches ``min_g2``; or shared query contexts (the
   same other terms around both) in ``min_contexts`` distinct contexts.
 
-Every candidate is measured: its affected queries are rewritten (the term replaced in the analyzed
-query) and all of them re-scored in one batch against the index; ``rescued`` counts the searches
+A candidate is measured by :mod:`querygap.rescoring`: its affected queries are rewritten (the term
+replaced in the analyzed query) and re-scored against the index; ``rescued`` counts the searches
 whose query becomes ok under the review's thresholds. Confidence, in [0, 1]::
 
     confidence = prior * (0.5 + 0.5 * rescued / searches)
@@ -31,78 +31,67 @@ context candidates are looked for only for terms no page has (df = 0); a context
 is kept only for a term with no other fix, and an alternative only when it is at least half as
 confident as the term's best. An unknown term (df = 0, with letters, not a stop word) with no
 convincing candidate and at least ``min_gap_searches`` searches becomes a content gap; gap
-terms that occur in the same queries form one topic. Rejected decisions are never proposed
-again.
+terms that occur in the same queries form one topic, with confidence 1 - (the highest confidence
+of any candidate of its terms). Rejected decisions are never proposed again.
+
+Only the candidates whose rescued searches can change a result are re-scored, so the results
+are those of re-scoring every candidate. Since confidence <= prior:
+
+- a candidate whose prior is under ``min_confidence``, or with fewer than ``min_searches``
+  searches, is never convincing;
+- a context-only synonym of a term that has another convincing fix is never proposed, and one
+  whose prior is under half the term's best confidence, or under its ``max_candidates``-th best,
+  can no longer be; they are re-scored best prior first, while they can still be proposed;
+- the rest count only through a content-gap topic's confidence (the highest over its terms'
+  candidates): re-scored best prior first, only while their prior exceeds the topic's best.
+
+"Best prior first" runs in rounds of the best 1, 2, 4, ... per term or topic. Each distinct
+rewritten query is scored once per round.
 """
 
 from __future__ import annotations
 
 import json
+from collections.abc import Callable
 from dataclasses import dataclass
 
 import duckdb
 import numpy as np
 import pandas as pd
-import scipy.sparse as sp
-from scipy.sparse.csgraph import connected_components
 
-from querygap.analyzer import analyze_series
 from querygap.errors import StageOrderError
+from querygap.gap_topics import gap_terms, gap_topics, topic_confidence
 from querygap.indexing import Index, load_index
-from querygap.nearmiss import (
-    join_candidates,
-    spelling_candidates,
-    substitution_scores,
-    variant_candidates,
+from querygap.nearmiss import join_candidates
+from querygap.proposal_candidates import (
+    candidates_for,
+    confidence,
+    convincing,
+    prior,
+    select_fixes,
 )
-from querygap.scoring import score_queries
+from querygap.proposal_settings import ProposalSettings
+from querygap.rescoring import measure, rescued_searches, rewrite, sequences_of, status_of, volume
 from querygap.workspace import frame, run, transaction
 
+__all__ = [
+    "KINDS",
+    "PROPOSAL_COLUMNS",
+    "ProposalRun",
+    "ProposalSettings",
+    "awaiting_check",
+    "candidates_for",
+    "confidence",
+    "convincing",
+    "gap_topics",
+    "measure",
+    "propose",
+    "rewrite",
+    "status_of",
+    "top_fixes",
+]
+
 KINDS = ("spelling", "variant", "synonym", "content_gap")
-
-
-@dataclass(frozen=True)
-class ProposalSettings:
-    """Thresholds of the proposal stage (all rules of thumb unless a source is named).
-
-    Parameters
-    ----------
-    min_searches : int, default=2
-        Searches a term needs (in failing queries) before fixes are looked for; a term seen once
-        is as likely noise as a pattern (common practice, no source).
-    min_gap_searches : int, default=3
-        Searches a term without a convincing fix needs to be listed as a content gap.
-    max_gap_seconds : float, default=300
-        Longest gap between a failing search and its reformulation: a similar query again within
-        about 5 minutes signals dissatisfaction (Hassan, Shi, Craswell & Ramsey, CIKM 2013).
-    min_pairs : int, default=2
-        Reformulation pairs a synonym needs.
-    min_g2 : float, default=10.83
-        Signed G^2 a synonym needs: the chi-square(1) critical value at the 0.1% level. Jones et
-        al. (2006) used about 100 on a web-scale log (memory); a site log is far smaller.
-    min_contexts : int, default=2
-        Distinct shared query contexts a context-only synonym needs.
-    max_context_terms : int, default=100
-        A shared context held by more ok-query terms than this is not used: it is too common to
-        tell which term replaces which, and it would make the context join grow with the square
-        of the queries (the demo's largest context holds 53).
-    min_confidence : float, default=0.4
-        Confidence at which a candidate is convincing: a one-edit fix of a long word needs to
-        rescue some searches or have reformulations behind it, a two-edit fix reformulations.
-    max_candidates : int, default=3
-        Candidates kept per term.
-    """
-
-    min_searches: int = 2
-    min_gap_searches: int = 3
-    max_gap_seconds: float = 300.0
-    min_pairs: int = 2
-    min_g2: float = 10.83
-    min_contexts: int = 2
-    max_context_terms: int = 100
-    min_confidence: float = 0.4
-    max_candidates: int = 3
-
 
 PROPOSAL_COLUMNS = [
     "kind",
@@ -116,111 +105,6 @@ PROPOSAL_COLUMNS = [
     "evidence",
     "evidence_json",
 ]
-VARIANT_PRIOR = 0.7
-
-
-def _stop_words() -> frozenset[str]:
-    from sklearn.feature_extraction.text import ENGLISH_STOP_WORDS
-
-    return frozenset(ENGLISH_STOP_WORDS)
-
-
-def status_of(scores: pd.DataFrame, min_score: float, min_coverage: float) -> pd.Series:
-    """The flag stage's rule (sql/review.sql review_flag) applied to re-scored queries."""
-    zero = scores["n_known"] == 0
-    low = (scores["best_score"] < min_score) | (scores["coverage"] < min_coverage)
-    return pd.Series(np.where(zero, "zero", np.where(low, "low", "ok")), index=scores.index)
-
-
-def rewrite(sequences: pd.DataFrame, candidates: pd.DataFrame) -> pd.DataFrame:
-    """Apply each candidate to each query holding its term, in the analyzed term sequence.
-
-    Parameters
-    ----------
-    sequences : DataFrame
-        ``row`` (query), ``pos`` and ``term``: the analyzed queries, terms in order.
-    candidates : DataFrame
-        ``cand`` (id), ``term`` (one word, or two for a join) and ``suggestion``.
-
-    Returns
-    -------
-    DataFrame with columns cand, row, rewritten (the terms joined by spaces).
-    """
-    seq = sequences[["row", "pos", "term"]].reset_index(drop=True)
-    seq["term"] = seq["term"].astype(object)  # an empty frame may come back float-typed
-    seq["next"] = seq["term"].shift(-1).where(seq["row"].eq(seq["row"].shift(-1)), "")
-    cand = candidates[["cand", "term", "suggestion"]].copy()
-    cand["term"] = cand["term"].astype(object)
-    parts = cand["term"].str.split(" ", n=1, expand=True).reindex(columns=[0, 1])
-    cand["first"] = parts[0].astype(object)
-    cand["second"] = parts[1].astype(object).fillna("")
-    hits = seq.merge(cand, left_on="term", right_on="first", suffixes=("", "_c"))
-    hits = hits[(hits["second"] == "") | (hits["second"] == hits["next"])]
-    pairs = hits[["cand", "row"]].drop_duplicates()
-    full = pairs.merge(seq, on="row").merge(
-        cand[["cand", "first", "second", "suggestion"]], on="cand"
-    )
-    full = full.sort_values(["cand", "row", "pos"], kind="mergesort")
-    prev = (
-        full["term"]
-        .shift(1)
-        .where(full["row"].eq(full["row"].shift(1)) & full["cand"].eq(full["cand"].shift(1)), "")
-    )
-    is_first = (full["term"] == full["first"]) & (
-        (full["second"] == "") | (full["next"] == full["second"])
-    )
-    is_second = (full["second"] != "") & (full["term"] == full["second"]) & (prev == full["first"])
-    full["out"] = np.where(is_first, full["suggestion"], np.where(is_second, "", full["term"]))
-    full = full[full["out"] != ""]
-    # The rows are sorted by (cand, row, pos): join each group's terms with one C-level
-    # reduction over object strings (no per-group pandas work).
-    cand_ids, row_ids = full["cand"].to_numpy(), full["row"].to_numpy()
-    if not len(full):
-        return pd.DataFrame({"cand": cand_ids, "row": row_ids, "rewritten": np.empty(0, object)})
-    starts = np.flatnonzero(
-        np.r_[True, (cand_ids[1:] != cand_ids[:-1]) | (row_ids[1:] != row_ids[:-1])]
-    )
-    words = full["out"].to_numpy(dtype=object) + " "
-    joined = pd.Series(np.add.reduceat(words, starts), dtype=object).str.slice(0, -1)
-    return pd.DataFrame(
-        {"cand": cand_ids[starts], "row": row_ids[starts], "rewritten": joined.to_numpy()}
-    )
-
-
-def measure(
-    candidates: pd.DataFrame,
-    failing: pd.DataFrame,
-    index: Index,
-    min_score: float,
-    min_coverage: float,
-) -> pd.DataFrame:
-    """Searches, queries and rescued searches of every candidate, re-scoring in one batch.
-
-    ``failing`` has one row per failing query (``query``, ``searches``). Returns ``candidates``
-    with columns searches, queries, rescued added (0 for a candidate that touches no query).
-    """
-    queries = failing.reset_index(drop=True)
-    occ = analyze_series(queries["query"], index.settings.analyzer)
-    occ["pos"] = occ.groupby("row").cumcount()
-    done = rewrite(occ, candidates)
-    unique = pd.Series(pd.unique(done["rewritten"]), dtype=object)
-    if len(unique):
-        scores = score_queries(unique, index).scores
-        ok = status_of(scores, min_score, min_coverage) == "ok"
-        done["ok"] = (
-            pd.Series(ok.to_numpy(), index=unique.to_numpy()).reindex(done["rewritten"]).to_numpy()
-        )
-    else:
-        done["ok"] = pd.Series(dtype=bool)
-    done["searches"] = queries["searches"].to_numpy()[done["row"].to_numpy()]
-    done["rescued"] = np.where(done["ok"], done["searches"], 0)
-    agg = done.groupby("cand").agg(
-        searches=("searches", "sum"), queries=("row", "nunique"), rescued=("rescued", "sum")
-    )
-    out = candidates.merge(agg, left_on="cand", right_index=True, how="left")
-    for col in ("searches", "queries", "rescued"):
-        out[col] = out[col].fillna(0).astype(np.int64)
-    return out
 
 
 def _evidence(row: pd.Series, settings: ProposalSettings) -> tuple[str, str]:
@@ -261,145 +145,103 @@ def _evidence(row: pd.Series, settings: ProposalSettings) -> tuple[str, str]:
     return "; ".join(words), json.dumps(facts, sort_keys=True)
 
 
-def candidates_for(
-    terms: pd.DataFrame,
-    vocab: pd.DataFrame,
+def covered_terms(good: pd.DataFrame) -> set[str]:
+    """Terms a proposed fix covers: each fix's term and, for a two-word term, both words."""
+    return set(good["term"]) | {w for t in good["term"] for w in t.split(" ")}
+
+
+def term_topics(topics: pd.DataFrame) -> pd.Series:
+    """The topic of each gap term, indexed by term."""
+    if topics.empty:
+        return pd.Series(dtype=np.int64)
+    words = topics["terms"].str.split(" ").explode()
+    return pd.Series(topics["topic"].to_numpy()[words.index.to_numpy()], index=words.to_numpy())
+
+
+def measure_what_counts(
+    cands: pd.DataFrame,
+    failing_terms: pd.DataFrame,
+    failing: pd.DataFrame,
     sequences: pd.DataFrame,
-    subs: pd.DataFrame,
-    contexts: pd.DataFrame,
+    index: Index,
+    thresholds: dict[str, float],
+    eligible: pd.DataFrame,
     settings: ProposalSettings,
-) -> pd.DataFrame:
-    """All candidates of the eligible terms: term, suggestion, kind, how and evidence counts."""
-    unknown = terms.loc[terms["df"] == 0, "term"]
-    spell = spelling_candidates(unknown, vocab, limit=settings.max_candidates)
-    spell = spell.assign(kind="spelling", how="edit")
-    var = pd.concat(
-        [variant_candidates(unknown, vocab), join_candidates(sequences, vocab)],
-        ignore_index=True,
-    ).assign(kind="variant")
-    cands = pd.concat([var, spell], ignore_index=True)
-    # A plural or another ending is a variant even when it is also one edit away.
-    cands = cands.drop_duplicates(["term", "suggestion"])
-    scored = (
-        substitution_scores(subs)
-        if len(subs)
-        else pd.DataFrame(columns=["term_from", "term_to", "n_ab", "n_a", "n_b", "total", "g2"])
-    )
-    scored = scored.rename(columns={"term_from": "term", "term_to": "suggestion"})
-    in_vocab = pd.Index(vocab["term"])
-    scored = scored[scored["term"].isin(terms["term"]) & scored["suggestion"].isin(in_vocab)]
-    ctx = contexts.rename(columns={"term_from": "term", "term_to": "suggestion"})
-    ctx = ctx[ctx["term"].isin(unknown)][["term", "suggestion", "contexts"]]
-    cands = cands.merge(
-        scored[["term", "suggestion", "n_ab", "g2"]], on=["term", "suggestion"], how="outer"
-    )
-    cands = cands.merge(ctx, on=["term", "suggestion"], how="left")
-    cands[["n_ab", "g2", "contexts"]] = cands[["n_ab", "g2", "contexts"]].fillna(0)
-    new = cands["kind"].isna()
-    behaviour = (cands["n_ab"] >= settings.min_pairs) & (cands["g2"] >= settings.min_g2)
-    cands = cands[~new | behaviour]
-    new = cands["kind"].isna()
-    cands.loc[new, ["kind", "how"]] = ["synonym", "reformulation"]
-    ctx_only = ctx[ctx["contexts"] >= settings.min_contexts].merge(
-        cands[["term", "suggestion"]], how="left", indicator=True
-    )
-    ctx_only = ctx_only[ctx_only["_merge"] == "left_only"].drop(columns="_merge")
-    ctx_only = ctx_only.assign(kind="synonym", how="contexts", n_ab=0.0, g2=0.0)
-    cands = pd.concat([cands, ctx_only], ignore_index=True)
-    df_of = pd.Series(vocab["df"].to_numpy(), index=in_vocab)
-    ok_of = pd.Series(vocab["ok_searches"].to_numpy(), index=in_vocab)
-    first = cands["suggestion"].str.split(" ").str[0]
-    cands["df"] = (
-        cands["df"].fillna(pd.Series(df_of.reindex(first).to_numpy(), index=cands.index)).fillna(0)
-    )
-    cands["ok_searches"] = (
-        cands["ok_searches"]
-        .fillna(pd.Series(ok_of.reindex(first).to_numpy(), index=cands.index))
-        .fillna(0)
-    )
-    cands["distance"] = cands["distance"].fillna(0)
-    cands["allowed"] = cands["allowed"].fillna(0)
-    return cands.reset_index(drop=True).assign(cand=lambda d: np.arange(len(d)))
-
-
-def convincing(cands: pd.DataFrame, settings: ProposalSettings) -> pd.Series:
-    """Candidates worth proposing: confident enough, with volume, and either rescuing searches
-    when re-scored or backed by reformulations (a fix that helps no search is not shown)."""
-    behaviour = (cands["n_ab"] >= settings.min_pairs) & (cands["g2"] >= settings.min_g2)
-    return (
-        (cands["confidence"] >= settings.min_confidence)
-        & (cands["searches"] >= settings.min_searches)
-        & ((cands["rescued"] > 0) | behaviour)
-    )
-
-
-def confidence(cands: pd.DataFrame, settings: ProposalSettings) -> np.ndarray:
-    """The module docstring's confidence of each measured candidate."""
-    kind, how = cands["kind"].to_numpy(object), cands["how"].to_numpy(object)
-    g2 = np.maximum(cands["g2"].to_numpy(float), 0.0)
-    c = cands["contexts"].to_numpy(float)
-    prior = np.select(
-        [how == "edit", kind == "variant", how == "reformulation", how == "contexts"],
-        [
-            1 - cands["distance"].to_numpy(float) / (cands["allowed"].to_numpy(float) + 1),
-            VARIANT_PRIOR,
-            g2 / (g2 + settings.min_g2),
-            0.5 * c / (c + 2),
-        ],
-        0.0,
-    )
-    n_pairs = cands["n_ab"].to_numpy(float)
-    boosted = np.where((kind != "synonym") & (n_pairs > 0), 1 - (1 - prior) * 0.5**n_pairs, prior)
-    searches = cands["searches"].to_numpy(float)
-    share = np.divide(
-        cands["rescued"].to_numpy(float), searches, out=np.zeros(len(cands)), where=searches > 0
-    )
-    return np.round(boosted * (0.5 + 0.5 * share), 4)
-
-
-def _rank(found: pd.DataFrame) -> pd.Series:
-    order = found.sort_values(
-        ["term", "confidence", "rescued", "df", "suggestion"],
-        ascending=[True, False, False, False, True],
-        kind="mergesort",
-    )
-    return order.groupby("term").cumcount().add(1).reindex(found.index)
-
-
-def gap_topics(
-    failing_terms: pd.DataFrame, gap_terms: pd.Index
-) -> tuple[pd.DataFrame, pd.DataFrame]:
-    """Group gap terms that occur in the same failing queries into topics.
-
-    Two gap terms are in one topic when a chain of failing queries links them (connected
-    components of the term-term co-occurrence graph). A topic is named by the gap terms of its most
-    searched query, in query order.
+) -> tuple[pd.DataFrame, pd.DataFrame, pd.DataFrame, pd.DataFrame]:
+    """Measure the candidates whose rescued searches can change a result (module docstring).
 
     Returns
     -------
-    (topics, topic_queries): topics has topic, term (the name), terms, searches, queries;
-    topic_queries has topic, query, example, searches.
+    (cands, good, topics, topic_queries): every candidate with searches, queries, rescued (0
+    when not re-scored) and confidence (exact for every candidate that may be proposed, and its
+    maximum exact over the terms of every gap topic); the proposed fixes (:func:`select_fixes`);
+    the content-gap topics and their queries (:func:`querygap.gap_topics.gap_topics`).
     """
-    rows = failing_terms[failing_terms["term"].isin(gap_terms)]
-    if rows.empty:
-        return (
-            pd.DataFrame(columns=["topic", "term", "terms", "searches", "queries"]),
-            pd.DataFrame(columns=["topic", "query", "example", "searches"]),
-        )
-    qcodes, qs = pd.factorize(rows["query"])
-    tcodes, ts = pd.factorize(rows["term"])
-    incidence = sp.csr_matrix((np.ones(len(rows)), (qcodes, tcodes)), shape=(len(qs), len(ts)))
-    _, label = connected_components(incidence.T @ incidence, directed=False)
-    rows = rows.assign(topic=label[tcodes])
-    per_query = rows.drop_duplicates(["topic", "query"])[["topic", "query", "example", "searches"]]
-    per_query = per_query.sort_values(["topic", "searches", "query"], ascending=[True, False, True])
-    head = per_query.groupby("topic").head(1)[["topic", "query"]]
-    names = rows.merge(head, on=["topic", "query"]).sort_values("position")
-    name = names.groupby("topic")["term"].agg(" ".join)
-    topics = per_query.groupby("topic").agg(searches=("searches", "sum"), queries=("query", "size"))
-    topics["term"] = name
-    topics["terms"] = rows.groupby("topic")["term"].agg(lambda t: " ".join(sorted(set(t))))
-    return topics.reset_index(), per_query.reset_index(drop=True)
+    n = failing["searches"].to_numpy()
+    counts = volume(sequences, cands, n)
+    cands = cands.assign(
+        searches=counts["searches"].to_numpy(), queries=counts["queries"].to_numpy(), rescued=0
+    )
+    bound = pd.Series(np.round(prior(cands, settings), 4), index=cands.index)
+    measured = pd.Series(False, index=cands.index)
+
+    def rescore(mask: pd.Series) -> None:
+        if mask.any():
+            found = rescued_searches(
+                sequences,
+                cands[mask],
+                n,
+                index,
+                thresholds["min_score"],
+                thresholds["min_coverage"],
+            )
+            cands.loc[mask, "rescued"] = found.to_numpy()
+            measured[mask] = True
+        cands["confidence"] = confidence(cands, settings)
+
+    def in_rounds(group: pd.Series, wanted: pd.Series, can_count: Callable[[], pd.Series]) -> None:
+        """Re-score the wanted candidates best prior first (1, 2, 4, ... per group and round)
+        while ``can_count()`` says their result can still matter."""
+        size = 1
+        while (pending := wanted & ~measured & can_count()).any():
+            order = pd.DataFrame({"group": group[pending], "bound": bound[pending]})
+            order = order.sort_values("bound", ascending=False, kind="mergesort")
+            heads = order[order.groupby("group").cumcount() < size].index
+            rescore(pd.Series(cands.index.isin(heads), index=cands.index))
+            size *= 2
+
+    may_convince = (bound >= settings.min_confidence) & (cands["searches"] >= settings.min_searches)
+    from_contexts = cands["how"] == "contexts"
+    rescore(may_convince & ~from_contexts)
+    # A context-only synonym is proposed only for a term with no other fix, only when at least
+    # half as confident as the term's best and among its best max_candidates.
+    fixed = cands.loc[convincing(cands, settings) & ~from_contexts, "term"]
+    ctx_wanted = may_convince & from_contexts & ~cands["term"].isin(fixed)
+
+    def may_rank() -> pd.Series:
+        conv = convincing(cands, settings) & ctx_wanted
+        top = cands[conv].sort_values("confidence", ascending=False, kind="mergesort")
+        nth = top.groupby("term").cumcount()
+        best = top[nth == 0].set_index("term")["confidence"]
+        last = top[nth == settings.max_candidates - 1].set_index("term")["confidence"]
+        floor = pd.concat([0.5 * best, last], axis=1).max(axis=1)
+        return bound >= floor.reindex(cands["term"]).fillna(-np.inf).to_numpy()
+
+    in_rounds(cands["term"], ctx_wanted, may_rank)
+    good = select_fixes(cands, settings)
+    gaps = gap_terms(eligible, covered_terms(good), settings)
+    # A gap topic's confidence is the best confidence of its terms' candidates: the others
+    # count only while their prior can beat the best confidence found for their topic.
+    topics, topic_queries = gap_topics(failing_terms, pd.Index(gaps))
+    topic_of = term_topics(topics)
+    topic = pd.Series(topic_of.reindex(cands["term"]).to_numpy(), index=cands.index)
+
+    def may_beat() -> pd.Series:
+        best = cands["confidence"].groupby(topic).max()
+        return bound > best.reindex(topic).to_numpy()
+
+    in_rounds(topic, topic.notna() & (cands["searches"] > 0), may_beat)
+    return cands, good, topics, topic_queries
 
 
 @dataclass
@@ -451,7 +293,7 @@ def propose(
         searches=("searches", "sum"), queries=("query", "size"), df=("df", "max")
     )
     eligible = term_stats[term_stats["searches"] >= settings.min_searches].reset_index()
-    occ = analyze_series(failing["query"], index.settings.analyzer)
+    occ = sequences_of(failing["query"], index)
     joins = join_candidates(occ, vocab)
     words = joins["term"].str.split(" ", n=1, expand=True)
     unmatched = set(failing_terms["term"])
@@ -468,35 +310,12 @@ def propose(
         indicator=True,
     )["_merge"].eq("both")
     cands = cands[~gone.to_numpy()].reset_index(drop=True)
-    cands = measure(cands, failing, index, thresholds["min_score"], thresholds["min_coverage"])
-    cands["confidence"] = confidence(cands, settings)
-    good = cands[convincing(cands, settings)].copy()
-    # Synonyms from shared contexts alone are weak: only for terms with no other fix.
-    other = set(good.loc[good["how"] != "contexts", "term"])
-    good = good[(good["how"] != "contexts") | ~good["term"].isin(other)]
-    # Keep an alternative only when it is at least half as convincing as the best one.
-    top = good.groupby("term")["confidence"].transform("max")
-    good = good[good["confidence"] >= 0.5 * top].copy()
-    good["rank"] = _rank(good)
-    good = good[good["rank"] <= settings.max_candidates]
-
-    covered = set(good["term"]) | {w for t in good["term"] for w in t.split(" ")}
+    cands, good, topics, topic_queries = measure_what_counts(
+        cands, failing_terms, failing, occ, index, thresholds, eligible, settings
+    )
     best_conf = cands.groupby("term")["confidence"].max()
-    gap_terms = eligible[
-        (eligible["df"] == 0)
-        & (eligible["searches"] >= settings.min_gap_searches)
-        & eligible["term"].str.contains(r"[^\W\d_]", regex=True)
-        & ~eligible["term"].isin(covered)
-        & ~eligible["term"].isin(_stop_words())
-    ]["term"]
-    topics, topic_queries = gap_topics(failing_terms, pd.Index(gap_terms))
     if not topics.empty:
-        closest = (
-            topics["terms"]
-            .str.split(" ")
-            .map(lambda ts: float(best_conf.reindex(ts).fillna(0).max()))
-        )
-        topics["confidence"] = (1 - closest).round(4)
+        topics["confidence"] = topic_confidence(topics, best_conf)
         gap_rejected = set(rejected.loc[rejected["kind"] == "content_gap", "term"])
         topics = topics[~topics["term"].isin(gap_rejected)]
 

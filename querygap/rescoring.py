@@ -1,0 +1,159 @@
+"""Re-scoring of candidate fixes: each candidate applied to the failing queries holding its term.
+
+Pure computation. A candidate (``term`` -> ``suggestion``) touches the failing queries whose
+analyzed terms hold ``term`` (both words, adjacent, for a two-word term). Its ``searches`` and
+``queries`` are the searches and the number of those queries; its ``rescued`` are the searches of
+the touched queries whose rewritten form (the term replaced in the analyzed query) is ok under
+the review's thresholds. Each distinct rewritten query is scored once, however many candidates
+produce it, so the cost grows with the distinct rewritten queries of the candidates asked for.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import pandas as pd
+
+from querygap.analyzer import analyze_series
+from querygap.indexing import Index
+from querygap.scoring import score_queries
+
+
+def status_of(scores: pd.DataFrame, min_score: float, min_coverage: float) -> pd.Series:
+    """The flag stage's rule (sql/review.sql review_flag) applied to re-scored queries."""
+    zero = scores["n_known"] == 0
+    low = (scores["best_score"] < min_score) | (scores["coverage"] < min_coverage)
+    return pd.Series(np.where(zero, "zero", np.where(low, "low", "ok")), index=scores.index)
+
+
+def sequences_of(queries: pd.Series, index: Index) -> pd.DataFrame:
+    """The analyzed queries as ``row``, ``pos`` and ``term``, terms in query order."""
+    occ = analyze_series(queries.reset_index(drop=True), index.settings.analyzer)
+    occ["pos"] = occ.groupby("row").cumcount()
+    return occ
+
+
+def _prepared(
+    sequences: pd.DataFrame, candidates: pd.DataFrame
+) -> tuple[pd.DataFrame, pd.DataFrame]:
+    seq = sequences[["row", "pos", "term"]].reset_index(drop=True)
+    seq["term"] = seq["term"].astype(object)  # an empty frame may come back float-typed
+    seq["next"] = seq["term"].shift(-1).where(seq["row"].eq(seq["row"].shift(-1)), "")
+    cand = candidates[["cand", "term", "suggestion"]].copy()
+    cand["term"] = cand["term"].astype(object)
+    parts = cand["term"].str.split(" ", n=1, expand=True).reindex(columns=[0, 1])
+    cand["first"] = parts[0].astype(object)
+    cand["second"] = parts[1].astype(object).fillna("")
+    return seq, cand
+
+
+def _pairs(seq: pd.DataFrame, cand: pd.DataFrame) -> pd.DataFrame:
+    hits = seq.merge(cand, left_on="term", right_on="first", suffixes=("", "_c"))
+    hits = hits[(hits["second"] == "") | (hits["second"] == hits["next"])]
+    return hits[["cand", "row"]].drop_duplicates()
+
+
+def affected_rows(sequences: pd.DataFrame, candidates: pd.DataFrame) -> pd.DataFrame:
+    """The (cand, row) pairs of each candidate and the queries holding its term."""
+    return _pairs(*_prepared(sequences, candidates)).reset_index(drop=True)
+
+
+def rewrite(sequences: pd.DataFrame, candidates: pd.DataFrame) -> pd.DataFrame:
+    """Apply each candidate to each query holding its term, in the analyzed term sequence.
+
+    Parameters
+    ----------
+    sequences : DataFrame
+        ``row`` (query), ``pos`` and ``term``: the analyzed queries, terms in order.
+    candidates : DataFrame
+        ``cand`` (id), ``term`` (one word, or two for a join) and ``suggestion``.
+
+    Returns
+    -------
+    DataFrame with columns cand, row, rewritten (the terms joined by spaces).
+    """
+    seq, cand = _prepared(sequences, candidates)
+    pairs = _pairs(seq, cand)
+    full = pairs.merge(seq, on="row").merge(
+        cand[["cand", "first", "second", "suggestion"]], on="cand"
+    )
+    full = full.sort_values(["cand", "row", "pos"], kind="mergesort")
+    prev = (
+        full["term"]
+        .shift(1)
+        .where(full["row"].eq(full["row"].shift(1)) & full["cand"].eq(full["cand"].shift(1)), "")
+    )
+    is_first = (full["term"] == full["first"]) & (
+        (full["second"] == "") | (full["next"] == full["second"])
+    )
+    is_second = (full["second"] != "") & (full["term"] == full["second"]) & (prev == full["first"])
+    full["out"] = np.where(is_first, full["suggestion"], np.where(is_second, "", full["term"]))
+    full = full[full["out"] != ""]
+    # The rows are sorted by (cand, row, pos): join each group's terms with one C-level
+    # reduction over object strings (no per-group pandas work).
+    cand_ids, row_ids = full["cand"].to_numpy(), full["row"].to_numpy()
+    if not len(full):
+        return pd.DataFrame({"cand": cand_ids, "row": row_ids, "rewritten": np.empty(0, object)})
+    starts = np.flatnonzero(
+        np.r_[True, (cand_ids[1:] != cand_ids[:-1]) | (row_ids[1:] != row_ids[:-1])]
+    )
+    words = full["out"].to_numpy(dtype=object) + " "
+    joined = pd.Series(np.add.reduceat(words, starts), dtype=object).str.slice(0, -1)
+    return pd.DataFrame(
+        {"cand": cand_ids[starts], "row": row_ids[starts], "rewritten": joined.to_numpy()}
+    )
+
+
+def volume(sequences: pd.DataFrame, candidates: pd.DataFrame, searches: np.ndarray) -> pd.DataFrame:
+    """Searches and queries each candidate touches (no scoring), indexed by ``cand``.
+
+    ``searches[row]`` is the searches of failing query ``row``.
+    """
+    pairs = affected_rows(sequences, candidates)
+    pairs["searches"] = np.asarray(searches)[pairs["row"].to_numpy()]
+    agg = pairs.groupby("cand").agg(searches=("searches", "sum"), queries=("row", "size"))
+    return agg.reindex(candidates["cand"].to_numpy(), fill_value=0).astype(np.int64)
+
+
+def rescued_searches(
+    sequences: pd.DataFrame,
+    candidates: pd.DataFrame,
+    searches: np.ndarray,
+    index: Index,
+    min_score: float,
+    min_coverage: float,
+) -> pd.Series:
+    """Searches each candidate rescues, indexed by ``cand``: the searches of its rewritten
+    queries that score ok; every distinct rewritten query is scored once."""
+    done = rewrite(sequences, candidates)
+    unique, codes = np.unique(done["rewritten"].to_numpy(object), return_inverse=True)
+    if len(unique):
+        scores = score_queries(pd.Series(unique, dtype=object), index).scores
+        ok = (status_of(scores, min_score, min_coverage) == "ok").to_numpy()[codes]
+    else:
+        ok = np.zeros(0, bool)
+    got = np.where(ok, np.asarray(searches)[done["row"].to_numpy()], 0)
+    rescued = pd.Series(got, dtype=np.int64).groupby(done["cand"].to_numpy()).sum()
+    return rescued.reindex(candidates["cand"].to_numpy(), fill_value=0).astype(np.int64)
+
+
+def measure(
+    candidates: pd.DataFrame,
+    failing: pd.DataFrame,
+    index: Index,
+    min_score: float,
+    min_coverage: float,
+) -> pd.DataFrame:
+    """Searches, queries and rescued searches of every candidate, re-scoring in one batch.
+
+    ``failing`` has one row per failing query (``query``, ``searches``). Returns ``candidates``
+    with columns searches, queries, rescued added (0 for a candidate that touches no query).
+    """
+    queries = failing.reset_index(drop=True)
+    occ = sequences_of(queries["query"], index)
+    n = queries["searches"].to_numpy()
+    out = candidates.copy()
+    counts = volume(occ, candidates, n)
+    out["searches"] = counts["searches"].to_numpy()
+    out["queries"] = counts["queries"].to_numpy()
+    out["rescued"] = rescued_searches(occ, candidates, n, index, min_score, min_coverage).to_numpy()
+    return out

@@ -1,0 +1,59 @@
+"""Re-scoring only the candidates that can matter gives the proposals of re-scoring them all.
+
+The stage skips a candidate when its prior (an upper bound of its confidence) shows its rescued
+searches cannot change what is proposed or a gap's confidence. Giving every candidate the prior
+1 turns every skip off: the proposals must come out the same, field for field.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Iterator
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+import pytest
+
+import querygap.proposals as stage
+from querygap.workspace import connect
+
+
+@pytest.fixture(scope="module")
+def demo_db(tmp_path_factory: pytest.TempPathFactory) -> Iterator[Path]:
+    from querygap.demo import run_demo
+
+    root = tmp_path_factory.mktemp("demo")
+    run_demo(root / "demo.duckdb", root / "reports", say=lambda _m: None)
+    yield root / "demo.duckdb"
+
+
+def _run(db: Path, review_id: str) -> tuple[pd.DataFrame, pd.DataFrame, int]:
+    """The stored proposals and examples, and how many candidates were re-scored."""
+    seen = []
+    real = stage.rescued_searches
+
+    def counting(sequences, cands, *args, **kwargs):  # type: ignore[no-untyped-def]
+        seen.append(len(cands))
+        return real(sequences, cands, *args, **kwargs)
+
+    stage.rescued_searches = counting
+    try:
+        conn = connect(db)
+        done = stage.propose(conn, review_id)
+        conn.close()
+    finally:
+        stage.rescued_searches = real
+    return done.proposals, done.examples, sum(seen)
+
+
+@pytest.mark.parametrize("review_id", ["2026-W45", "2026-W46"])
+def test_skipping_candidates_changes_no_proposal(
+    demo_db: Path, review_id: str, monkeypatch: pytest.MonkeyPatch
+) -> None:
+    proposals, examples, rescored = _run(demo_db, review_id)
+    monkeypatch.setattr(stage, "prior", lambda cands, _settings: np.ones(len(cands)))
+    all_proposals, all_examples, all_rescored = _run(demo_db, review_id)
+    assert rescored < all_rescored  # the bounds do skip candidates on the demo
+    assert len(proposals) > 0
+    pd.testing.assert_frame_equal(proposals, all_proposals)
+    pd.testing.assert_frame_equal(examples, all_examples)
