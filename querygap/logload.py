@@ -26,7 +26,9 @@ from querygap.textnorm import normalize_series
 from querygap.workspace import run, transaction
 
 _REJECT_WORDS = {
-    "INVALID ENCODING": "bytes that are not valid {encoding}; pass --encoding if the file uses another",
+    "INVALID ENCODING": (
+        "bytes that are not valid {encoding}; pass --encoding if the file uses another"
+    ),
     "MISSING COLUMNS": "fewer fields than the header has",
     "TOO MANY COLUMNS": "more fields than the header has (an unquoted delimiter?)",
     "UNQUOTED VALUE": "a quote that is not closed",
@@ -68,7 +70,10 @@ class LoadResult:
     def reconciliation(self) -> str:
         """The line the command prints for this file."""
         if self.skipped:
-            return f"{self.path}: already loaded (same content as file {self.file_id}); nothing changed"
+            return (
+                f"{self.path}: already loaded (same content as file {self.file_id}); "
+                "nothing changed"
+            )
         return (
             f"{self.path}: {self.rows_read:,} rows read = {self.loaded:,} loaded + "
             f"{self.rejected:,} rejected + {self.duplicates:,} already loaded from another file"
@@ -145,7 +150,8 @@ def _raw_sql(layout: LogLayout) -> str:
         )
     if layout.format == "jsonl":
         inner = (
-            "SELECT l.line, r.j, coalesce(json_type(CASE WHEN json_valid(r.j) THEN r.j END) = 'OBJECT', false) AS ok"
+            "SELECT l.line, r.j, "
+            "coalesce(json_type(CASE WHEN json_valid(r.j) THEN r.j END) = 'OBJECT', false) AS ok"
             " FROM stage_read r JOIN stage_lines l ON l.k = r.rowid"
         )
         return (
