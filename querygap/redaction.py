@@ -49,7 +49,6 @@ plain hash of a small key space can be reversed by trying every key.
 
 from __future__ import annotations
 
-import hashlib
 import hmac
 import ipaddress
 import re
@@ -467,8 +466,10 @@ def keyed_hash_series(keys: pd.Series, secret: bytes) -> pd.Series:
     if not isinstance(secret, bytes) or len(secret) < 16:
         raise ValueError("the hashing secret must be bytes of length 16 or more (see new_secret)")
     codes, uniques = pd.factorize(keys, use_na_sentinel=True)
+    # hmac.digest is the one-shot C path: the same HMAC-SHA256 as hmac.new(...), about 4x faster.
+    digest = hmac.digest
     hashes = [
-        hmac.new(secret, str(key).encode("utf-8"), hashlib.sha256).hexdigest()[:HASH_HEX_CHARS]
+        digest(secret, str(key).encode("utf-8"), "sha256").hex()[:HASH_HEX_CHARS]
         for key in uniques
     ]
     lookup = np.array([*hashes, None], dtype=object)  # code -1 (missing) picks the final None
