@@ -15,32 +15,13 @@ from pathlib import Path
 import duckdb
 import pandas as pd
 
+from querygap.proposals import PROPOSAL_COLUMNS
+from querygap.rules import RULE_COLUMNS
 from querygap.safe_csv import write_csv
 from querygap.workspace import frame
 
-RULES_COLUMNS = [
-    "kind",
-    "term",
-    "replacement",
-    "direction",
-    "status",
-    "searches",
-    "rescued",
-    "note",
-]
-PROPOSAL_CSV_COLUMNS = [
-    "proposal_id",
-    "kind",
-    "term",
-    "suggestion",
-    "searches",
-    "queries",
-    "rescued",
-    "confidence",
-    "rank",
-    "evidence",
-    "evidence_json",
-]
+RULES_COLUMNS = list(RULE_COLUMNS)  # the rules file's format is defined once, in rules.py
+PROPOSAL_CSV_COLUMNS = ["proposal_id", *PROPOSAL_COLUMNS]
 GAP_COLUMNS = ["topic", "searches", "wordings", "missing_words", "example_queries", "closest_pages"]
 _MD_SPECIAL = re.compile(r"([\\`*_{}\[\]()#!|~>])")
 # ".", "-" and "+" only start a list (or a numbered list with digits) at the start of the text.
