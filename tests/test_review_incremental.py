@@ -55,3 +55,28 @@ def test_second_week_reuses_index_and_scores_only_new_queries(conn, tmp_path) ->
     third = run_review(conn, week_of(datetime(2025, 3, 11)), settings, None)
     assert third.index_id != first.index_id
     assert (third.index_reused, third.scored_now) == (False, 3)
+
+
+KEYS = {  # the keys schema 008 no longer enforces with a primary key
+    "query_scores": "index_id, query",
+    "query_top_pages": "index_id, query, rank",
+    "query_terms": "index_id, query, position",
+    "review_queries": "review_id, query",
+    "cluster_members": "review_id, query",
+}
+
+
+def test_rerunning_reviews_never_repeats_a_key(conn, tmp_path) -> None:
+    (tmp_path / "pages.csv").write_text(CONTENT, encoding="utf-8")
+    load_content(conn, tmp_path / "pages.csv", ContentOptions(source="site"))
+    queries = ["water meter", "leak", "pay bill", "sofa", "meeter", "sofas", "lake"]
+    load_log(conn, log(tmp_path / "w1.csv", "2025-03-04", queries), LoadOptions())
+    settings = ReviewSettings()
+    for _ in range(2):  # the same week twice: every stage reruns over its own rows
+        run_review(conn, week_of(datetime(2025, 3, 4)), settings, None)
+    for table, key in KEYS.items():
+        total, distinct = conn.execute(
+            f"SELECT count(*), count(DISTINCT ({key})) FROM {table}"
+        ).fetchall()[0]
+        assert total > 0, table
+        assert total == distinct, table
