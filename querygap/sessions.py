@@ -1,7 +1,9 @@
 """Session stage: group searches into sessions and mark machine traffic.
 
 Reads ``searches``; writes ``search_sessions`` (one row per search) and ``session_traffic`` (one
-row per session). The stage rebuilds both tables on every run, so it is idempotent.
+row per session). The stage rebuilds both tables on every run, so it is idempotent. DuckDB
+numbers the keys and sorts the searches; :mod:`querygap.session_split` splits them into sessions
+and computes the rate figures in one compiled pass; DuckDB names the sessions and stores them.
 
 Sessions
     A search with a session key belongs to that key's session. Otherwise the searches of one user
@@ -31,9 +33,12 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 import duckdb
+import numpy as np
 import pandas as pd
+import pyarrow as pa
 
 from querygap.errors import ConfigError
+from querygap.session_split import split_sessions
 from querygap.windows import Window
 from querygap.workspace import frame, run, transaction
 
@@ -123,9 +128,44 @@ def build_sessions(
     with transaction(conn):
         run(conn, "sessions_clear")
         run(conn, "sessions_clear_traffic")
-        run(conn, "sessions_assign", {"gap_seconds": settings.gap_minutes * 60})
-        run(conn, "sessions_traffic", settings.sql_params())
-        run(conn, "sessions_mark_bots")
+        run(conn, "sessions_actors")
+        rows = run(conn, "sessions_rows").fetchnumpy()
+        actor = np.asarray(rows["actor"])
+        split = split_sessions(
+            actor,
+            np.asarray(rows["is_user"]),
+            np.asarray(rows["at_us"]),
+            round(settings.gap_minutes * 60 * 1_000_000),
+        )
+        file_id = np.asarray(rows["file_id"])
+        line = np.asarray(rows["line"])
+        del rows
+        figures = pa.table(
+            {
+                "session": np.arange(split.first_row.size, dtype=np.int64),
+                "actor": actor[split.first_row],
+                "number": split.number,
+                "file_id": file_id[split.first_row],
+                "line": line[split.first_row],
+                "searches": split.searches,
+                "first_us": split.first_us,
+                "last_us": split.last_us,
+                "peak_per_minute": split.peak_minute,
+                "peak_per_hour": split.peak_hour,
+                "median_gap_s": pa.array(split.median_gap_s, from_pandas=True),  # NaN -> NULL
+            }
+        )
+        conn.register("session_figures", figures)
+        run(conn, "sessions_name", settings.sql_params())
+        conn.unregister("session_figures")
+        del figures
+        run(conn, "sessions_traffic")
+        per_row = pa.table({"file_id": file_id, "line": line, "session": split.row_session})
+        conn.register("session_rows", per_row)
+        run(conn, "sessions_assign")
+        conn.unregister("session_rows")
+        run(conn, "sessions_drop_named")
+        run(conn, "sessions_drop_actors")
     return frame(conn, "sessions_summary")
 
 

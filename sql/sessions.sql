@@ -8,42 +8,38 @@ DELETE FROM search_sessions;
 -- name: sessions_clear_traffic
 DELETE FROM session_traffic;
 
--- name: sessions_assign
--- One row per search in search_sessions (is_bot false until sessions_mark_bots). Reads searches.
--- A search with a session key belongs to that key's session ('s:<key>'). Otherwise the searches of
--- one user key, ordered by time, start a new session after a gap longer than $gap_seconds
--- ('u:<key>:<n>', n = 1, 2, ...). A search with neither key is a session of its own
--- ('r:<file_id>:<line>').
--- $gap_seconds: inactivity, in seconds, after which a user's next search opens a new session
-INSERT INTO search_sessions
-WITH by_user AS (
-    SELECT file_id, line, user_key, searched_at,
-           CASE WHEN lag(searched_at) OVER w IS NULL
-                  OR epoch(searched_at) - epoch(lag(searched_at) OVER w) > $gap_seconds
-                THEN 1 ELSE 0 END AS opens
-    FROM searches
-    WHERE session_key IS NULL AND user_key IS NOT NULL
-    WINDOW w AS (PARTITION BY user_key ORDER BY searched_at, file_id, line)
-), numbered AS (
-    SELECT file_id, line,
-           'u:' || user_key || ':' || sum(opens) OVER (
-               PARTITION BY user_key ORDER BY searched_at, file_id, line
-               ROWS BETWEEN UNBOUNDED PRECEDING AND CURRENT ROW) AS session_id
-    FROM by_user
-)
-SELECT file_id, line, session_id, false FROM numbered
-UNION ALL
-SELECT file_id, line, 's:' || session_key, false FROM searches WHERE session_key IS NOT NULL
-UNION ALL
-SELECT file_id, line, 'r:' || file_id || ':' || line, false
-FROM searches WHERE session_key IS NULL AND user_key IS NULL;
+-- name: sessions_actors
+-- Number every session key and every user key of a search without a session key (from 0), so
+-- the split can run on integers. Reads searches; writes the temporary table session_actors.
+CREATE OR REPLACE TEMP TABLE session_actors AS
+SELECT kind, key, (row_number() OVER () - 1)::BIGINT AS actor
+FROM (SELECT DISTINCT CASE WHEN session_key IS NOT NULL THEN 's' ELSE 'u' END AS kind,
+             coalesce(session_key, user_key) AS key
+      FROM searches WHERE session_key IS NOT NULL OR user_key IS NOT NULL);
 
--- name: sessions_traffic
--- Rate figures and verdict of every session. Reads search_sessions, searches; writes
--- session_traffic. Three criteria, each with a human limit and a bot limit (a session beyond a
--- bot limit is 'bot'; beyond a human limit only, 'suspect'; else 'human'):
--- searches within any 60 s, searches within any 3600 s, and the median gap between consecutive
--- searches (only for sessions of at least $min_searches searches).
+-- name: sessions_rows
+-- Every search with its actor number (-1 with neither key) and time in microseconds since the
+-- epoch, sorted by actor, time, file and line: the order querygap.session_split walks.
+-- Reads searches, session_actors.
+SELECT coalesce(a.actor, -1)::BIGINT AS actor, coalesce(a.kind = 'u', false) AS is_user,
+       epoch_us(s.searched_at)::BIGINT AS at_us, s.file_id, s.line
+FROM searches s
+LEFT JOIN session_actors a
+  ON a.kind = CASE WHEN s.session_key IS NOT NULL THEN 's' ELSE 'u' END
+ AND a.key = coalesce(s.session_key, s.user_key)
+ORDER BY actor, at_us, s.file_id, s.line;
+
+-- name: sessions_name
+-- Name each session and give it its verdict. Reads the registered frame session_figures (one row
+-- per session: session, actor, number, file_id and line of its first search, searches, first_us,
+-- last_us, peak_per_minute, peak_per_hour, median_gap_s), session_actors and searches; writes the
+-- temporary table session_named. A session key's session is 's:<key>'; the n-th session of a
+-- user key 'u:<key>:<n>'; a search with neither key 'r:<file_id>:<line>'. The actor key is the
+-- first search's user key, else its session key.
+-- Three criteria, each with a human limit and a bot limit (a session beyond a bot limit is 'bot';
+-- beyond a human limit only, 'suspect'; else 'human'): searches within any 60 s, searches within
+-- any 3600 s, and the median gap between consecutive searches (only for sessions of at least
+-- $min_searches searches).
 -- $human_per_minute: most searches in 60 s a person plausibly makes
 -- $bot_per_minute: searches in 60 s beyond which the session is a machine
 -- $human_per_hour: most searches in 3600 s a person plausibly makes
@@ -51,36 +47,44 @@ FROM searches WHERE session_key IS NULL AND user_key IS NULL;
 -- $human_median_gap: median gap (s) at or above which a long session looks human
 -- $bot_median_gap: median gap (s) below which a long session is a machine
 -- $min_searches: fewest searches for the median-gap criterion to apply
-INSERT INTO session_traffic
-WITH rows AS (
-    SELECT ss.session_id, coalesce(s.user_key, s.session_key) AS actor_key, s.searched_at,
-           epoch(s.searched_at) - epoch(lag(s.searched_at) OVER w) AS gap,
-           count(*) OVER (PARTITION BY ss.session_id ORDER BY s.searched_at
-                          RANGE BETWEEN INTERVAL 60 SECONDS PRECEDING AND CURRENT ROW) AS in_minute,
-           count(*) OVER (PARTITION BY ss.session_id ORDER BY s.searched_at
-                          RANGE BETWEEN INTERVAL 3600 SECONDS PRECEDING AND CURRENT ROW) AS in_hour
-    FROM search_sessions ss JOIN searches s ON s.file_id = ss.file_id AND s.line = ss.line
-    WINDOW w AS (PARTITION BY ss.session_id ORDER BY s.searched_at, s.file_id, s.line)
-), per_session AS (
-    SELECT session_id, any_value(actor_key) AS actor_key, count(*) AS searches,
-           min(searched_at) AS first_at, max(searched_at) AS last_at,
-           max(in_minute) AS peak_per_minute, max(in_hour) AS peak_per_hour,
-           median(gap) AS median_gap_s
-    FROM rows GROUP BY session_id
-)
-SELECT session_id, actor_key, searches, first_at, last_at, peak_per_minute, peak_per_hour,
-       median_gap_s,
-       CASE WHEN peak_per_minute > $bot_per_minute OR peak_per_hour > $bot_per_hour
-                 OR (searches >= $min_searches AND median_gap_s < $bot_median_gap) THEN 'bot'
-            WHEN peak_per_minute > $human_per_minute OR peak_per_hour > $human_per_hour
-                 OR (searches >= $min_searches AND median_gap_s < $human_median_gap) THEN 'suspect'
-            ELSE 'human' END
-FROM per_session;
+CREATE OR REPLACE TEMP TABLE session_named AS
+SELECT f.session,
+       CASE WHEN f.actor < 0 THEN 'r:' || f.file_id || ':' || f.line
+            WHEN a.kind = 's' THEN 's:' || a.key
+            ELSE 'u:' || a.key || ':' || f.number END AS session_id,
+       coalesce(s.user_key, s.session_key) AS actor_key,
+       f.searches, make_timestamptz(f.first_us) AS first_at, make_timestamptz(f.last_us) AS last_at,
+       f.peak_per_minute, f.peak_per_hour, f.median_gap_s,
+       CASE WHEN f.peak_per_minute > $bot_per_minute OR f.peak_per_hour > $bot_per_hour
+                 OR (f.searches >= $min_searches AND f.median_gap_s < $bot_median_gap) THEN 'bot'
+            WHEN f.peak_per_minute > $human_per_minute OR f.peak_per_hour > $human_per_hour
+                 OR (f.searches >= $min_searches AND f.median_gap_s < $human_median_gap)
+                 THEN 'suspect'
+            ELSE 'human' END AS verdict
+FROM session_figures f
+LEFT JOIN session_actors a ON a.actor = f.actor
+JOIN searches s ON s.file_id = f.file_id AND s.line = f.line;
 
--- name: sessions_mark_bots
--- Set is_bot on every search of a 'bot' session. Reads session_traffic; updates search_sessions.
-UPDATE search_sessions SET is_bot = true
-WHERE session_id IN (SELECT session_id FROM session_traffic WHERE verdict = 'bot');
+-- name: sessions_traffic
+-- Rate figures and verdict of every session. Reads session_named; writes session_traffic.
+INSERT INTO session_traffic
+SELECT session_id, actor_key, searches, first_at, last_at, peak_per_minute, peak_per_hour,
+       median_gap_s, verdict
+FROM session_named;
+
+-- name: sessions_assign
+-- One row per search in search_sessions, is_bot set for the searches of a 'bot' session. Reads
+-- the registered frame session_rows (file_id, line, session), session_named.
+INSERT INTO search_sessions
+SELECT r.file_id, r.line, n.session_id, n.verdict = 'bot'
+FROM session_rows r JOIN session_named n ON n.session = r.session;
+
+-- name: sessions_drop_actors
+-- The stage's temporary tables, no longer needed.
+DROP TABLE IF EXISTS session_actors;
+
+-- name: sessions_drop_named
+DROP TABLE IF EXISTS session_named;
 
 -- name: sessions_summary
 -- Sessions, searches and distinct actor keys per verdict.

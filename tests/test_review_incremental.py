@@ -80,3 +80,17 @@ def test_rerunning_reviews_never_repeats_a_key(conn, tmp_path) -> None:
         ).fetchall()[0]
         assert total > 0, table
         assert total == distinct, table
+
+
+def test_rebuilding_sessions_never_repeats_a_key(conn, tmp_path) -> None:
+    from querygap.sessions import build_sessions
+
+    queries = ["water meter", "leak", "pay bill", "sofa"]
+    load_log(conn, log(tmp_path / "w1.csv", "2025-03-04", queries), LoadOptions())
+    for _ in range(2):
+        build_sessions(conn)
+    for table, key in (("search_sessions", "file_id, line"), ("session_traffic", "session_id")):
+        total, distinct = conn.execute(
+            f"SELECT count(*), count(DISTINCT ({key})) FROM {table}"
+        ).fetchall()[0]
+        assert total == distinct == 4, table

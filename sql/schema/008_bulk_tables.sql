@@ -1,10 +1,13 @@
--- querygap workspace schema, version 8: the bulk per-query tables lose their primary keys.
+-- querygap workspace schema, version 8: the bulk per-query and per-search tables lose their
+-- primary keys.
 --
 -- A primary key makes DuckDB keep an ART index beside the table and probe it for every inserted
 -- row: on VARCHAR keys of millions of rows that was about 6 times the insert's own cost, and the
 -- index lives in memory. The stages that write these tables write each key once by construction
 -- (the score stage scores only queries not yet scored against the index; a review, its clusters
--- and its members are cleared before they are written again), and tests check that no key repeats.
+-- and its members are cleared before they are written again; the session stage rebuilds its two
+-- tables whole), and tests check that no key repeats. Deleting and rewriting millions of keyed
+-- rows in one transaction made the session stage's commit take a minute at 2M searches.
 -- Each table is rebuilt with the same columns, in the same order, keeping its rows.
 
 CREATE TABLE query_scores_v8 (
@@ -72,3 +75,28 @@ CREATE TABLE cluster_members_v8 (
 INSERT INTO cluster_members_v8 SELECT * FROM cluster_members;
 DROP TABLE cluster_members;
 ALTER TABLE cluster_members_v8 RENAME TO cluster_members;
+
+CREATE TABLE search_sessions_v8 (
+    file_id    INTEGER NOT NULL,
+    line       BIGINT NOT NULL,
+    session_id VARCHAR NOT NULL,
+    is_bot     BOOLEAN NOT NULL
+);
+INSERT INTO search_sessions_v8 SELECT * FROM search_sessions;
+DROP TABLE search_sessions;
+ALTER TABLE search_sessions_v8 RENAME TO search_sessions;
+
+CREATE TABLE session_traffic_v8 (
+    session_id      VARCHAR NOT NULL,
+    actor_key       VARCHAR,              -- the user key, else the session key; NULL without either
+    searches        BIGINT NOT NULL,
+    first_at        TIMESTAMPTZ NOT NULL,
+    last_at         TIMESTAMPTZ NOT NULL,
+    peak_per_minute BIGINT NOT NULL,      -- most searches in any 60 s span of the session
+    peak_per_hour   BIGINT NOT NULL,      -- most searches in any 3600 s span of the session
+    median_gap_s    DOUBLE,               -- median seconds between consecutive searches; NULL for one
+    verdict         VARCHAR NOT NULL
+);
+INSERT INTO session_traffic_v8 SELECT * FROM session_traffic;
+DROP TABLE session_traffic;
+ALTER TABLE session_traffic_v8 RENAME TO session_traffic;
