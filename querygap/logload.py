@@ -1,9 +1,12 @@
 """The load stage for query logs: file -> ``searches`` (+ ``rejects``, ``duplicates``).
 
-DuckDB reads the file (it streams; no Python list of rows). Python touches only the distinct query
-texts (to redact and normalize them) and the distinct session/user keys (to hash them): logs follow
-Zipf's law, so these are far fewer than the rows. The whole load is one transaction: a load that
-fails or is killed part-way leaves the workspace as it was.
+DuckDB reads the file once, parsing it as it reads (no Python list of rows), and hashes each
+distinct session/user key once with HMAC-SHA256 in SQL. Python touches only the distinct query
+texts (to redact and normalize them), in a worker thread while DuckDB hashes the keys: logs follow
+Zipf's law, so these are far fewer than the rows. The rows are then written to ``searches`` in one
+pass, and the few repeats and rows already held from another file are corrected in place. The
+whole write is one transaction: a load that fails or is killed part-way leaves the workspace as it
+was.
 
 Reconciliation, printed by the command: rows read = loaded + rejected + duplicates.
 """
@@ -13,6 +16,7 @@ from __future__ import annotations
 import hashlib
 import json
 import re
+from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass, field
 from pathlib import Path
 
@@ -21,7 +25,7 @@ import pandas as pd
 
 from querygap.errors import InputError
 from querygap.logformats import LogLayout, sniff_log
-from querygap.redaction import RedactionRules, keyed_hash_series, new_secret, redact_series
+from querygap.redaction import RedactionRules, hmac_pads, new_secret, redact_series
 from querygap.textnorm import normalize_series
 from querygap.workspace import run, transaction
 
@@ -97,12 +101,12 @@ def _sql_str(text: str) -> str:
     return "'" + text.replace("'", "''") + "'"
 
 
-def _read_sql(layout: LogLayout) -> tuple[str, int, bool]:
-    """The SELECT that reads the file into stage_read; the first data record number; rejects?"""
+def _reader_sql(layout: LogLayout) -> tuple[str, int, bool]:
+    """The table function that reads the file; the first data record number; rejects?"""
     path = _sql_str(str(layout.path))
     comp = "'gzip'" if layout.compressed else "'none'"
     if layout.format == "parquet":
-        return (f"SELECT * FROM read_parquet({path}, file_row_number = true)", 1, False)
+        return (f"read_parquet({path})", 1, False)
     if layout.format == "jsonl":
         # DuckDB 2.0 reads CR LF files right only when it detects the line ending itself
         # (new_line = '\\r\\n' with store_rejects reads no rows at all).
@@ -119,7 +123,7 @@ def _read_sql(layout: LogLayout) -> tuple[str, int, bool]:
         )
         first = 2
     return (
-        f"SELECT * FROM read_csv({path}, {opts}, encoding = {_sql_str(layout.encoding)}, "
+        f"read_csv({path}, {opts}, encoding = {_sql_str(layout.encoding)}, "
         f"compression = {comp}, store_rejects = true, rejects_table = 'qg_reject_errors', "
         "rejects_scan = 'qg_reject_scans', strict_mode = true)",
         first,
@@ -127,8 +131,8 @@ def _read_sql(layout: LogLayout) -> tuple[str, int, bool]:
     )
 
 
-def _raw_sql(layout: LogLayout) -> str:
-    """The SELECT that turns stage_read (+ stage_lines) into stage_raw's standard columns."""
+def _raw_sql(layout: LogLayout, reader: str) -> str:
+    """The SELECT of view stage_raw: the reader's rows as our standard text columns."""
 
     def col(fld: str) -> str:
         name = layout.mapping.get(fld)
@@ -143,25 +147,20 @@ def _raw_sql(layout: LogLayout) -> str:
         f"{col(f)} AS {f}_raw" for f in ("query", "session", "user", "results", "clicks")
     )
     ts = col("timestamp")
-    if layout.format == "parquet":
-        return (
-            f"SELECT file_row_number + 1 AS line, {ts} AS ts_raw, {fields}, "
-            "NULL::VARCHAR AS parse_error FROM stage_read"
-        )
     if layout.format == "jsonl":
+        # Blank lines are read (they hold a record number) but are not rows of the log.
         inner = (
-            "SELECT l.line, r.j, "
-            "coalesce(json_type(CASE WHEN json_valid(r.j) THEN r.j END) = 'OBJECT', false) AS ok"
-            " FROM stage_read r JOIN stage_lines l ON l.k = r.rowid"
+            "SELECT j, coalesce(json_type(CASE WHEN json_valid(j) THEN j END) = 'OBJECT', false)"
+            f" AS ok FROM {reader}"
         )
         return (
-            f"SELECT line, {ts} AS ts_raw, {fields}, CASE WHEN NOT ok THEN "
-            "'the line is not a JSON object' END AS parse_error FROM (" + inner + ") "
-            "WHERE trim(j) <> ''"
+            f"SELECT j IS NULL OR trim(j) = '' AS blank, {ts} AS ts_raw, {fields}, "
+            "CASE WHEN NOT ok THEN 'the line is not a JSON object' END AS parse_error "
+            f"FROM ({inner})"
         )
     return (
-        f"SELECT l.line, {ts} AS ts_raw, {fields}, NULL::VARCHAR AS parse_error "
-        "FROM stage_read r JOIN stage_lines l ON l.k = r.rowid"
+        f"SELECT false AS blank, {ts} AS ts_raw, {fields}, NULL::VARCHAR AS parse_error "
+        f"FROM {reader}"
     )
 
 
@@ -187,6 +186,19 @@ def workspace_secret(conn: duckdb.DuckDBPyConnection) -> bytes:
     secret = new_secret()
     conn.execute("INSERT INTO workspace_secret VALUES (?)", [secret])
     return secret
+
+
+def query_map(texts: pd.Series, rules: RedactionRules) -> tuple[pd.DataFrame, dict[str, int]]:
+    """Each distinct raw query text with its redacted display text and its normalized form.
+
+    Returns the frame (query_raw, query_text, query) and the redaction counts by kind.
+    """
+    redacted, counts = redact_series(texts, rules)
+    shown = redacted.str.strip().str.replace(r"\s+", " ", regex=True)
+    frame = pd.DataFrame(
+        {"query_raw": texts, "query_text": shown, "query": normalize_series(redacted)}
+    )
+    return frame, counts
 
 
 def load_log(conn: duckdb.DuckDBPyConnection, path: Path, options: LoadOptions) -> LoadResult:
@@ -217,55 +229,31 @@ def load_log(conn: duckdb.DuckDBPyConnection, path: Path, options: LoadOptions) 
         conn.execute("SET preserve_insertion_order = true")
 
 
+def _read_error(path: Path, layout: LogLayout, exc: duckdb.Error) -> InputError:
+    """The InputError for a file the reader gave up on."""
+    first_line = str(exc).splitlines()[0]
+    if "gzip" in first_line.lower():
+        return InputError(f"{path}: the gzip data ends early or is damaged ({first_line})")
+    hint = (
+        "; the file may mix line endings (CR LF and LF): convert it, e.g. with dos2unix"
+        if "state machine" in first_line
+        else ""
+    )
+    return InputError(f"{path}: cannot be read as {layout.format}: {first_line}{hint}")
+
+
 def _load_staged(
     conn: duckdb.DuckDBPyConnection, path: Path, layout: LogLayout, sha: str, options: LoadOptions
 ) -> LoadResult:
     file_id = int(run(conn, "next_file_id").fetchall()[0][0])  # type: ignore[index]
-    read_sql, first, has_rejects = _read_sql(layout)
+    reader, first, has_rejects = _reader_sql(layout)
     for table in ("qg_reject_errors", "qg_reject_scans"):
         conn.execute(f"DROP TABLE IF EXISTS {table}")
-    try:
-        conn.execute(f"CREATE OR REPLACE TEMP TABLE stage_read AS {read_sql}")
-        # stage_read's rowids now hold the file order; later statements may reorder freely,
-        # which lets DuckDB spill them to disk.
-        conn.execute("SET preserve_insertion_order = false")
-    except duckdb.Error as exc:
-        first_line = str(exc).splitlines()[0]
-        if "gzip" in first_line.lower():
-            raise InputError(
-                f"{path}: the gzip data ends early or is damaged ({first_line})"
-            ) from None
-        hint = (
-            "; the file may mix line endings (CR LF and LF): convert it, e.g. with dos2unix"
-            if "state machine" in first_line
-            else ""
-        )
-        raise InputError(f"{path}: cannot be read as {layout.format}: {first_line}{hint}") from None
-    n_read = int(conn.execute("SELECT count(*) FROM stage_read").fetchall()[0][0])  # type: ignore[index]
-    structural = pd.DataFrame(columns=["line", "field", "reason", "raw"])
-    if has_rejects:
-        structural = conn.execute(
-            "SELECT line, any_value(column_name) AS field, any_value(error_type) AS kind, "
-            "any_value(error_message) AS message, any_value(csv_line) AS raw "
-            "FROM qg_reject_errors GROUP BY line ORDER BY line"
-        ).df()
-        structural["reason"] = [
-            _REJECT_WORDS.get(k, m).format(encoding=layout.encoding)
-            for k, m in zip(structural["kind"], structural["message"], strict=True)
-        ]
-        if layout.format == "jsonl":
-            structural["field"] = "(line)"
-        structural["field"] = structural["field"].fillna("(line)")
-    conn.execute(
-        "CREATE OR REPLACE TEMP TABLE stage_bad_lines AS SELECT unnest(?::BIGINT[]) AS line",
-        [structural["line"].astype("int64").tolist()],
-    )
-    run(conn, "stage_line_numbers", {"first": first, "total": n_read + len(structural)})
-    conn.execute(f"CREATE OR REPLACE TEMP TABLE stage_raw AS {_raw_sql(layout)}")
-    blank_lines = n_read - int(conn.execute("SELECT count(*) FROM stage_raw").fetchall()[0][0])  # type: ignore[index]
+    conn.execute(f"CREATE OR REPLACE TEMP VIEW stage_raw AS {_raw_sql(layout, reader)}")
     names = layout.mapping
     conn.execute(f"SET TimeZone = {_sql_str(options.time_zone)}")
     try:
+        # One pass over the file: read, parse, check. The table's rowids keep the file order.
         run(
             conn,
             "stage_typed",
@@ -280,43 +268,61 @@ def _load_staged(
                 "f_clicks": names.get("clicks", ""),
             },
         )
+    except duckdb.OutOfMemoryException:
+        raise
+    except duckdb.Error as exc:
+        raise _read_error(path, layout, exc) from None
     finally:
         conn.execute("SET TimeZone = 'UTC'")
+    # Later statements may reorder rows freely, which lets DuckDB spill them to disk.
+    conn.execute("SET preserve_insertion_order = false")
+    returned, blank_lines = run(conn, "stage_read_counts").fetchall()[0]  # type: ignore[misc]
+    n_read = int(returned)
+    structural = pd.DataFrame(columns=["line", "field", "reason", "raw"])
+    if has_rejects:
+        structural = conn.execute(
+            "SELECT line, any_value(column_name) AS field, any_value(error_type) AS kind, "
+            "any_value(error_message) AS message, any_value(csv_line) AS raw "
+            "FROM qg_reject_errors GROUP BY line ORDER BY line"
+        ).df()
+        structural["reason"] = [
+            _REJECT_WORDS.get(k, m).format(encoding=layout.encoding)
+            for k, m in zip(structural["kind"], structural["message"], strict=True)
+        ]
+        if layout.format == "jsonl":
+            structural["field"] = "(line)"
+        structural["field"] = structural["field"].fillna("(line)")
+    conn.execute("SET VARIABLE qg_first_line = ?", [first])
+    if len(structural):
+        conn.execute(
+            "CREATE OR REPLACE TEMP TABLE stage_bad_lines AS SELECT unnest(?::BIGINT[]) AS line",
+            [structural["line"].astype("int64").tolist()],
+        )
+        run(conn, "stage_line_shift", {"first": first, "total": n_read + len(structural)})
+        run(conn, "stage_numbered_around_rejects")
+    else:
+        run(conn, "stage_numbered_in_order")
 
     texts = run(conn, "stage_query_texts").df()["query_raw"].astype(object)
-    redacted, counts = redact_series(texts, options.redaction)
-    shown = redacted.str.strip().str.replace(r"\s+", " ", regex=True)
-    conn.register(
-        "stage_query_map_df",
-        pd.DataFrame(
-            {
-                "query_raw": texts,
-                "query_text": shown,
-                "query": normalize_series(redacted),
-            }
-        ),
-    )
+    inner_pad, outer_pad = hmac_pads(workspace_secret(conn))
+    # Python redacts and normalizes the texts while DuckDB (which releases the GIL) hashes keys.
+    with ThreadPoolExecutor(max_workers=1) as pool:
+        mapped = pool.submit(query_map, texts, options.redaction)
+        run(conn, "stage_key_map", {"inner_pad": inner_pad, "outer_pad": outer_pad})
+        frame, counts = mapped.result()
+    conn.register("stage_query_map_df", frame)
     conn.execute("CREATE OR REPLACE TEMP TABLE stage_query_map AS SELECT * FROM stage_query_map_df")
     conn.unregister("stage_query_map_df")
-    keys = run(conn, "stage_keys").df()["k"].astype(object)
-    conn.register(
-        "stage_key_map_df",
-        pd.DataFrame(
-            {
-                "k": keys,
-                "hashed": keyed_hash_series(keys, workspace_secret(conn)),
-            }
-        ),
-    )
-    conn.execute("CREATE OR REPLACE TEMP TABLE stage_key_map AS SELECT * FROM stage_key_map_df")
-    conn.unregister("stage_key_map_df")
+    del frame, texts
+    earlier = bool(conn.execute("SELECT count(*) FROM log_files").fetchall()[0][0])  # type: ignore[index]
 
-    run(conn, "stage_rows", {"file_id": file_id})
-    run(conn, "stage_number_repeats")
     # Staging used temp tables only; from here on the workspace changes, all or nothing.
     with transaction(conn):
-        run(conn, "store_duplicates", {"file_id": file_id})
-        run(conn, "store_new_searches")
+        run(conn, "store_new_searches", {"file_id": file_id})
+        run(conn, "store_number_repeats", {"file_id": file_id})
+        if earlier:
+            run(conn, "store_duplicates", {"file_id": file_id})
+            run(conn, "drop_duplicate_searches", {"file_id": file_id})
         run(conn, "store_typed_rejects", {"file_id": file_id})
         if len(structural):
             raw, _ = redact_series(structural["raw"].astype(object).fillna(""), options.redaction)
@@ -341,7 +347,7 @@ def _load_staged(
             conn.unregister("stage_struct_df")
         parsed, typed_rejects, dupes = run(conn, "load_counts", {"file_id": file_id}).fetchall()[0]  # type: ignore[misc]
         rejected = int(typed_rejects) + len(structural)
-        rows_read = n_read - blank_lines + len(structural)
+        rows_read = n_read - int(blank_lines) + len(structural)
         loaded = int(parsed) - int(dupes)
         for kind, items in counts.items():
             if items:
@@ -363,15 +369,14 @@ def _load_staged(
                 "rows_duplicate": int(dupes),
             },
         )
+    conn.execute("DROP VIEW IF EXISTS stage_numbered")
+    conn.execute("DROP VIEW IF EXISTS stage_raw")
     for table in (
-        "stage_read",
-        "stage_lines",
-        "stage_bad_lines",
-        "stage_raw",
         "stage_typed",
+        "stage_bad_lines",
+        "stage_line_shift",
         "stage_query_map",
         "stage_key_map",
-        "stage_rows",
     ):
         conn.execute(f"DROP TABLE IF EXISTS {table}")
     return LoadResult(

@@ -49,6 +49,7 @@ plain hash of a small key space can be reversed by trying every key.
 
 from __future__ import annotations
 
+import hashlib
 import hmac
 import ipaddress
 import re
@@ -65,6 +66,7 @@ __all__ = [
     "BUILTIN_KINDS",
     "PLACEHOLDERS",
     "RedactionRules",
+    "hmac_pads",
     "keyed_hash_series",
     "luhn_valid",
     "luhn_valid_array",
@@ -87,6 +89,7 @@ CARD_MAX_DIGITS = 19
 PHONE_MIN_DIGITS = 9  # local numbers
 PHONE_MAX_DIGITS = 15  # E.164 maximum
 HASH_HEX_CHARS = 16  # 64 bits: about 3e-8 chance of any collision among a million keys
+HMAC_BLOCK_BYTES = 64  # SHA-256's block size (RFC 2104 calls it B)
 
 _LABEL = re.compile(r"[a-z][a-z0-9_]*")
 _DIGIT = re.compile(r"\d")
@@ -473,3 +476,31 @@ def keyed_hash_series(keys: pd.Series, secret: bytes) -> pd.Series:
     ]
     lookup = np.array([*hashes, None], dtype=object)  # code -1 (missing) picks the final None
     return pd.Series(lookup[codes], index=keys.index, name=keys.name, dtype=object)
+
+
+def hmac_pads(secret: bytes) -> tuple[bytes, bytes]:
+    """The two padded keys of HMAC-SHA256 (RFC 2104), so SQL can compute the same pseudonyms.
+
+    HMAC(K, m) = H((K' xor opad) || H((K' xor ipad) || m)), where H is SHA-256, K' is the secret
+    (first hashed with H if longer than the 64-byte block) padded with zero bytes to 64 bytes,
+    ipad is the byte 0x36 and opad the byte 0x5c repeated 64 times. The load stage evaluates
+    ``left(sha256(outer || unhex(sha256(inner || encode(key)))), 16)`` in DuckDB, which equals
+    :func:`keyed_hash_series` on the same key and secret.
+
+    Parameters
+    ----------
+    secret : bytes
+        At least 16 bytes, as for :func:`keyed_hash_series`.
+
+    Returns
+    -------
+    inner, outer : bytes
+        K' xor ipad and K' xor opad, 64 bytes each.
+    """
+    if not isinstance(secret, bytes) or len(secret) < 16:
+        raise ValueError("the hashing secret must be bytes of length 16 or more (see new_secret)")
+    key = hashlib.sha256(secret).digest() if len(secret) > HMAC_BLOCK_BYTES else secret
+    key = key.ljust(HMAC_BLOCK_BYTES, b"\0")
+    inner = bytes(byte ^ 0x36 for byte in key)
+    outer = bytes(byte ^ 0x5C for byte in key)
+    return inner, outer

@@ -31,7 +31,6 @@ keeps the function idempotent: ``normalize_query(normalize_query(x)) == normaliz
 from __future__ import annotations
 
 import re
-import sys
 import unicodedata
 from functools import cache
 from typing import Any
@@ -56,22 +55,36 @@ _PLAIN = re.compile(rf"[^0-9a-z {_J}]")
 _SPACE_RUN = re.compile(r" {2,}")
 
 
-@cache
-def _translation_table() -> dict[int, str | None]:
-    """Build the ``str.translate`` table of steps 2 and 4 (all of Unicode, built once)."""
-    table: dict[int, str | None] = {}
-    keep = {ord(c) for c in JOINERS}
-    for code in range(sys.maxunicode + 1):
-        if code in keep:
-            continue
+class _TranslationTable(dict[int, str | None]):
+    """The ``str.translate`` mapping of steps 2 and 4, filled one code point at a time.
+
+    Building it for all of Unicode up front took about 1.5 s per process; a query log uses a few
+    hundred code points, so each is classified the first time it is seen (``__missing__``).
+    """
+
+    def __missing__(self, code: int) -> str | None:
         char = chr(code)
         category = unicodedata.category(char)
-        if char.isspace():
-            table[code] = " "
+        value: str | None = char
+        if code in _KEEP:
+            pass
+        elif char.isspace():
+            value = " "
         elif category in ("Cc", "Cf", "Cs"):
-            table[code] = None
+            value = None
         elif category[0] in ("P", "S") or category in ("Zs", "Zl", "Zp"):
-            table[code] = " "
+            value = " "
+        self[code] = value
+        return value
+
+
+_KEEP = frozenset(ord(c) for c in JOINERS)
+
+
+@cache
+def _translation_table() -> _TranslationTable:
+    """The translation table of steps 2 and 4, with the quote and dash mappings filled in."""
+    table = _TranslationTable()
     for char in _APOSTROPHES:
         table[ord(char)] = "'"
     for char in _DOUBLE_QUOTES:

@@ -1,23 +1,12 @@
--- Load stage: from a file read into temp table stage_read (by querygap/logload.py) to searches.
-
--- name: stage_line_numbers
--- Give every row read its record number: the k-th row read (rowid k) is the k-th record number
--- that DuckDB did not reject. Reads stage_read and stage_bad_lines; writes temp table stage_lines.
--- $first: the record number of the first data row (2 with a header line, 1 without)
--- $total: rows read plus rows rejected by the reader
-CREATE OR REPLACE TEMP TABLE stage_lines AS
-WITH numbers AS (
-    SELECT range AS line FROM range($first, $first + $total)
-), good AS (
-    SELECT line, row_number() OVER (ORDER BY line) - 1 AS k
-    FROM numbers ANTI JOIN stage_bad_lines USING (line)
-)
-SELECT k, line FROM good;
+-- Load stage: from the reader's view stage_raw (made by querygap/logload.py) to searches.
+-- Every pass over the rows is set-based; Python touches only the distinct query texts.
 
 -- name: stage_typed
--- Parse the raw text fields. Reads stage_raw (line, ts_raw, query_raw, session_raw, user_raw,
--- results_raw, clicks_raw, parse_error); writes temp table stage_typed with the first problem of
--- each row in problem_field / problem. Naive timestamps are read in the session's TimeZone.
+-- Read the file once and parse its text fields. Reads view stage_raw (blank, ts_raw, query_raw,
+-- session_raw, user_raw, results_raw, clicks_raw, parse_error), which reads the file; writes temp
+-- table stage_typed in file order (its rowid k is the k-th row the reader returned), with the
+-- first problem of each row in problem_field / problem. Naive timestamps are read in the
+-- session's TimeZone.
 -- $time_format: a strptime format for timestamps (used when $use_format)
 -- $use_format: true to read timestamps with $time_format, false for ISO 8601 and epoch numbers
 -- $max_query_chars: longer query texts are rejected
@@ -27,154 +16,212 @@ SELECT k, line FROM good;
 -- $f_results: the file's name for the results field ('' when absent)
 -- $f_clicks: the file's name for the clicks field ('' when absent)
 CREATE OR REPLACE TEMP TABLE stage_typed AS
-WITH parsed AS (
+WITH trimmed AS (
     SELECT
-        line, ts_raw, query_raw, session_raw, user_raw, results_raw, clicks_raw, parse_error,
+        blank, query_raw, session_raw, user_raw, parse_error, ts_raw, results_raw, clicks_raw,
+        trim(ts_raw) AS ts, trim(results_raw) AS results_text, trim(clicks_raw) AS clicks_text
+    FROM stage_raw
+), parsed AS (
+    SELECT
+        *,
         CASE
-            WHEN ts_raw IS NULL THEN NULL
-            WHEN $use_format THEN try_strptime(trim(ts_raw), $time_format)::TIMESTAMPTZ
-            WHEN regexp_full_match(trim(ts_raw), '[0-9]{9,10}(\.[0-9]+)?')
-                THEN to_timestamp(try_cast(trim(ts_raw) AS DOUBLE))
-            WHEN regexp_full_match(trim(ts_raw), '[0-9]{12,13}')
-                THEN to_timestamp(try_cast(trim(ts_raw) AS DOUBLE) / 1000.0)
-            ELSE try_cast(trim(ts_raw) AS TIMESTAMPTZ)
+            WHEN ts IS NULL THEN NULL
+            WHEN $use_format THEN try_strptime(ts, $time_format)::TIMESTAMPTZ
+            -- an epoch number has no '-'; most timestamps do, so they skip both patterns
+            WHEN contains(ts, '-') THEN try_cast(ts AS TIMESTAMPTZ)
+            WHEN regexp_full_match(ts, '[0-9]{9,10}(\.[0-9]+)?')
+                THEN to_timestamp(try_cast(ts AS DOUBLE))
+            WHEN regexp_full_match(ts, '[0-9]{12,13}')
+                THEN to_timestamp(try_cast(ts AS DOUBLE) / 1000.0)
+            ELSE try_cast(ts AS TIMESTAMPTZ)
         END AS searched_at,
         CASE
-            WHEN lower(trim(results_raw)) = 'true' THEN 1
-            WHEN lower(trim(results_raw)) = 'false' THEN 0
-            WHEN trim(results_raw) = '' THEN NULL
             -- whole numbers only: a cast would round 1.5 to 2 (3.0 is read as 3)
-            WHEN regexp_full_match(trim(results_raw), '[+-]?[0-9]+(\.0*)?')
-                THEN try_cast(regexp_replace(trim(results_raw), '\.0*$', '') AS BIGINT)
+            WHEN regexp_full_match(results_text, '[+-]?[0-9]+(\.0*)?')
+                THEN try_cast(regexp_replace(results_text, '\.0*$', '') AS BIGINT)
+            WHEN lower(results_text) = 'true' THEN 1
+            WHEN lower(results_text) = 'false' THEN 0
         END AS results,
         CASE
-            WHEN lower(trim(clicks_raw)) = 'true' THEN 1
-            WHEN lower(trim(clicks_raw)) = 'false' THEN 0
-            WHEN trim(clicks_raw) = '' THEN NULL
-            -- whole numbers only: a cast would round 1.5 to 2 (3.0 is read as 3)
-            WHEN regexp_full_match(trim(clicks_raw), '[+-]?[0-9]+(\.0*)?')
-                THEN try_cast(regexp_replace(trim(clicks_raw), '\.0*$', '') AS BIGINT)
+            WHEN regexp_full_match(clicks_text, '[+-]?[0-9]+(\.0*)?')
+                THEN try_cast(regexp_replace(clicks_text, '\.0*$', '') AS BIGINT)
+            WHEN lower(clicks_text) = 'true' THEN 1
+            WHEN lower(clicks_text) = 'false' THEN 0
         END AS clicks
-    FROM stage_raw
+    FROM trimmed
+), checked AS (
+    -- the first problem of the row, as a number: each test runs once per row
+    SELECT
+        *,
+        CASE
+            WHEN parse_error IS NOT NULL THEN 1
+            WHEN query_raw IS NULL THEN 2
+            WHEN trim(query_raw) = '' THEN 3
+            WHEN length(query_raw) > $max_query_chars THEN 4
+            WHEN ts IS NULL OR ts = '' THEN 5
+            WHEN searched_at IS NULL THEN 6
+            WHEN searched_at > now() + to_hours($future_slack_hours) THEN 7
+            WHEN results_text <> '' AND results IS NULL THEN 8
+            WHEN results < 0 THEN 9
+            WHEN clicks_text <> '' AND clicks IS NULL THEN 10
+            WHEN clicks < 0 THEN 11
+        END AS code
+    FROM parsed
 )
 SELECT
-    *,
+    blank, searched_at, query_raw, session_raw, user_raw, results, clicks,
     CASE
-        WHEN parse_error IS NOT NULL THEN '(line)'
-        WHEN query_raw IS NULL OR trim(query_raw) = '' THEN $f_query
-        WHEN length(query_raw) > $max_query_chars THEN $f_query
-        WHEN ts_raw IS NULL OR trim(ts_raw) = '' THEN $f_timestamp
-        WHEN searched_at IS NULL THEN $f_timestamp
-        WHEN searched_at > now() + to_hours($future_slack_hours) THEN $f_timestamp
-        WHEN results_raw IS NOT NULL AND trim(results_raw) <> '' AND results IS NULL THEN $f_results
-        WHEN results < 0 THEN $f_results
-        WHEN clicks_raw IS NOT NULL AND trim(clicks_raw) <> '' AND clicks IS NULL THEN $f_clicks
-        WHEN clicks < 0 THEN $f_clicks
+        WHEN code = 1 THEN '(line)'
+        WHEN code <= 4 THEN $f_query
+        WHEN code <= 7 THEN $f_timestamp
+        WHEN code <= 9 THEN $f_results
+        WHEN code <= 11 THEN $f_clicks
     END AS problem_field,
-    CASE
-        WHEN parse_error IS NOT NULL THEN parse_error
-        WHEN query_raw IS NULL THEN 'the query is missing or empty'
-        WHEN trim(query_raw) = '' THEN 'the query is empty'
-        WHEN length(query_raw) > $max_query_chars
-            THEN 'the query is ' || length(query_raw) || ' characters long (limit '
-                 || $max_query_chars || ')'
-        WHEN ts_raw IS NULL OR trim(ts_raw) = '' THEN 'the timestamp is missing'
-        WHEN searched_at IS NULL
-            THEN 'the timestamp ' || left(ts_raw, 40) || ' is not a date and time'
-                 || CASE WHEN NOT $use_format
-                         THEN ' (ISO 8601 or epoch seconds; pass --time-format otherwise)'
-                         ELSE ' in the format ' || $time_format END
-        WHEN searched_at > now() + to_hours($future_slack_hours)
-            THEN 'the timestamp ' || left(ts_raw, 40) || ' is in the future'
-        WHEN results_raw IS NOT NULL AND trim(results_raw) <> '' AND results IS NULL
-            THEN 'the result count ' || left(results_raw, 40) || ' is not a whole number'
-        WHEN results < 0 THEN 'the result count ' || results || ' is negative'
-        WHEN clicks_raw IS NOT NULL AND trim(clicks_raw) <> '' AND clicks IS NULL
-            THEN 'the click count ' || left(clicks_raw, 40) || ' is not a whole number'
-        WHEN clicks < 0 THEN 'the click count ' || clicks || ' is negative'
+    CASE code
+        WHEN 1 THEN parse_error
+        WHEN 2 THEN 'the query is missing or empty'
+        WHEN 3 THEN 'the query is empty'
+        WHEN 4 THEN 'the query is ' || length(query_raw) || ' characters long (limit '
+                    || $max_query_chars || ')'
+        WHEN 5 THEN 'the timestamp is missing'
+        WHEN 6 THEN 'the timestamp ' || left(ts_raw, 40) || ' is not a date and time'
+                    || CASE WHEN NOT $use_format
+                            THEN ' (ISO 8601 or epoch seconds; pass --time-format otherwise)'
+                            ELSE ' in the format ' || $time_format END
+        WHEN 7 THEN 'the timestamp ' || left(ts_raw, 40) || ' is in the future'
+        WHEN 8 THEN 'the result count ' || left(results_raw, 40) || ' is not a whole number'
+        WHEN 9 THEN 'the result count ' || results || ' is negative'
+        WHEN 10 THEN 'the click count ' || left(clicks_raw, 40) || ' is not a whole number'
+        WHEN 11 THEN 'the click count ' || clicks || ' is negative'
     END AS problem
-FROM parsed;
+FROM checked;
+
+-- name: stage_read_counts
+-- Rows the reader returned, and how many of them were blank lines (JSON Lines only).
+SELECT count(*) AS returned, count(*) FILTER (WHERE blank) AS blank FROM stage_typed;
+
+-- name: stage_numbered_in_order
+-- Record numbers when the reader rejected no line: the k-th row read is record first + k.
+-- Reads stage_typed and the variable qg_first_line (the first data record number); writes temp
+-- view stage_numbered (line and the columns of stage_typed, blank lines left out).
+CREATE OR REPLACE TEMP VIEW stage_numbered AS
+SELECT rowid + getvariable('qg_first_line') AS line, * EXCLUDE (blank)
+FROM stage_typed
+WHERE NOT blank;
+
+-- name: stage_line_shift
+-- Where the reader's rejected lines shift the record numbers: with the rejected lines b_0 < b_1
+-- < ... in the record range, g_i = b_i - first - i rows were read before b_i, so the k-th row read
+-- is record first + k + (the number of i with g_i <= k). Reads stage_bad_lines; writes temp
+-- table stage_line_shift (g, shift), one row per g with the count of rejected lines up to it.
+-- $first: the record number of the first data row (2 with a header line, 1 without)
+-- $total: rows read plus rows rejected by the reader
+CREATE OR REPLACE TEMP TABLE stage_line_shift AS
+SELECT g, max(i) + 1 AS shift
+FROM (
+    SELECT line - $first - i AS g, i
+    FROM (
+        SELECT line, row_number() OVER (ORDER BY line) - 1 AS i
+        FROM stage_bad_lines
+        WHERE line >= $first AND line < $first + $total
+    )
+)
+GROUP BY g;
+
+-- name: stage_numbered_around_rejects
+-- Record numbers when the reader rejected lines: first + k plus the shift of the last g <= k.
+-- Reads stage_typed, stage_line_shift and the variable qg_first_line; writes temp view
+-- stage_numbered as stage_numbered_in_order does.
+CREATE OR REPLACE TEMP VIEW stage_numbered AS
+SELECT t.rowid + getvariable('qg_first_line') + coalesce(s.shift, 0) AS line, t.* EXCLUDE (blank)
+FROM stage_typed t ASOF LEFT JOIN stage_line_shift s ON t.rowid >= s.g
+WHERE NOT t.blank;
 
 -- name: stage_query_texts
 -- The distinct query texts of the rows that parsed; Python redacts and normalizes them.
-SELECT DISTINCT query_raw FROM stage_typed WHERE problem IS NULL;
+SELECT DISTINCT query_raw FROM stage_typed WHERE problem IS NULL AND NOT blank;
 
--- name: stage_keys
--- The distinct session and user keys of the rows that parsed; Python hashes them.
-SELECT DISTINCT k FROM (
-    SELECT session_raw AS k FROM stage_typed WHERE problem IS NULL
-    UNION ALL
-    SELECT user_raw FROM stage_typed WHERE problem IS NULL
-) WHERE k IS NOT NULL;
+-- name: stage_key_map
+-- Pseudonymise each distinct session and user key of the rows that parsed, once, with
+-- HMAC-SHA256 (RFC 2104): H((K' xor opad) || H((K' xor ipad) || key)), key as UTF-8, the first
+-- 16 hex digits kept; the same value as querygap.redaction.keyed_hash_series. Reads stage_typed;
+-- writes temp table stage_key_map (k, hashed).
+-- $inner_pad: K' xor ipad, 64 bytes (querygap.redaction.hmac_pads)
+-- $outer_pad: K' xor opad, 64 bytes
+CREATE OR REPLACE TEMP TABLE stage_key_map AS
+SELECT k, left(sha256($outer_pad || unhex(sha256($inner_pad || encode(k)))), 16) AS hashed
+FROM (
+    SELECT session_raw AS k FROM stage_typed WHERE problem IS NULL AND NOT blank
+    UNION
+    SELECT user_raw FROM stage_typed WHERE problem IS NULL AND NOT blank
+)
+WHERE k IS NOT NULL;
 
--- name: stage_rows
--- The rows ready to store, with their fingerprint and occurrence number. Reads stage_typed,
--- stage_query_map (query_raw, query_text, query) and stage_key_map (k, hashed); writes temp
--- table stage_rows. A row's fingerprint hashes its instant, its keys and its redacted text; the
+-- name: store_new_searches
+-- Insert every row that parsed, with its fingerprint and occurrence 1; store_number_repeats and
+-- store_duplicates then correct the few rows that need it, in the same transaction. Reads
+-- stage_numbered, stage_query_map (query_raw, query_text, query) and stage_key_map (k, hashed);
+-- writes searches. A row's fingerprint hashes its instant, its keys and its redacted text; the
 -- n-th row of a file with a given fingerprint is the same search as the n-th row with it in an
 -- overlapping export.
 -- $file_id: the log_files id of this file
-CREATE OR REPLACE TEMP TABLE stage_rows AS
-WITH rows AS (
-    SELECT
-        $file_id AS file_id, t.line, t.searched_at, m.query_text, m.query,
-        s.hashed AS session_key, u.hashed AS user_key, t.results, t.clicks
-    FROM stage_typed t
-    JOIN stage_query_map m ON m.query_raw = t.query_raw
-    LEFT JOIN stage_key_map s ON s.k = t.session_raw
-    LEFT JOIN stage_key_map u ON u.k = t.user_raw
-    WHERE t.problem IS NULL
-), printed AS (
-    SELECT *, md5_number_upper(
-        epoch_us(searched_at)::VARCHAR || chr(31) || coalesce(session_key, '') || chr(31)
-        || coalesce(user_key, '') || chr(31) || query_text
-    ) AS fingerprint
-    FROM rows
-)
-SELECT *, 1 AS occurrence FROM printed;
+INSERT INTO searches
+SELECT
+    $file_id, t.line, t.searched_at, m.query_text, m.query, s.hashed, u.hashed, t.results,
+    t.clicks,
+    -- md5_number_upper of epoch_us, keys and text joined by chr(31); its macro goes through a bit
+    -- string, 6x slower than the mask
+    (md5_number(concat_ws(
+        chr(31), epoch_us(t.searched_at), coalesce(s.hashed, ''), coalesce(u.hashed, ''),
+        m.query_text
+    )) & 18446744073709551615::UHUGEINT)::UBIGINT,
+    1
+FROM stage_numbered t
+JOIN stage_query_map m ON m.query_raw = t.query_raw
+LEFT JOIN stage_key_map s ON s.k = t.session_raw
+LEFT JOIN stage_key_map u ON u.k = t.user_raw
+WHERE t.problem IS NULL;
 
--- name: stage_number_repeats
--- Number the rows that share a fingerprint within the file (1, 2, ... in line order); every other
--- row keeps occurrence 1. Repeats are rare, so the window runs over few rows and a log of tens of
--- millions of rows stays within DuckDB's memory limit. Reads and writes temp table stage_rows.
-UPDATE stage_rows SET occurrence = n.occurrence
+-- name: store_number_repeats
+-- Number the rows of this file that share a fingerprint (1, 2, ... in line order); every other
+-- row keeps occurrence 1. Repeats are rare, so the window runs over few rows. Reads and writes
+-- searches (this file's rows only).
+-- $file_id: the log_files id of this file
+UPDATE searches SET occurrence = n.occurrence
 FROM (
     SELECT line, row_number() OVER (PARTITION BY fingerprint ORDER BY line)::INTEGER AS occurrence
-    FROM stage_rows
-    WHERE fingerprint IN (
-        SELECT fingerprint FROM stage_rows GROUP BY fingerprint HAVING count(*) > 1
+    FROM searches
+    WHERE file_id = $file_id AND fingerprint IN (
+        SELECT fingerprint FROM searches WHERE file_id = $file_id
+        GROUP BY fingerprint HAVING count(*) > 1
     )
 ) n
-WHERE stage_rows.line = n.line;
-
--- name: store_new_searches
--- Insert the staged rows that no loaded file already holds. Reads stage_rows; writes searches.
-INSERT INTO searches
-SELECT file_id, line, searched_at, query_text, query, session_key, user_key, results, clicks,
-       fingerprint, occurrence
-FROM stage_rows r
-WHERE NOT EXISTS (
-    SELECT 1 FROM searches s
-    WHERE s.fingerprint = r.fingerprint AND s.occurrence = r.occurrence
-);
+WHERE searches.file_id = $file_id AND searches.line = n.line;
 
 -- name: store_duplicates
--- Record staged rows that an earlier file already holds. Reads stage_rows, searches; writes
--- duplicates. Runs before store_new_searches.
+-- Record this file's rows that an earlier file already holds (same fingerprint and occurrence).
+-- Reads searches; writes duplicates. Runs after store_number_repeats.
 -- $file_id: the log_files id of this file
 INSERT INTO duplicates
 SELECT r.file_id, r.line, s.file_id, s.line
-FROM stage_rows r
+FROM searches r
 JOIN searches s ON s.fingerprint = r.fingerprint AND s.occurrence = r.occurrence
-WHERE r.file_id = $file_id;
+WHERE r.file_id = $file_id AND s.file_id <> $file_id;
+
+-- name: drop_duplicate_searches
+-- Remove this file's rows that store_duplicates found in an earlier file. Reads duplicates;
+-- writes searches.
+-- $file_id: the log_files id of this file
+DELETE FROM searches
+WHERE file_id = $file_id AND line IN (SELECT line FROM duplicates WHERE file_id = $file_id);
 
 -- name: store_typed_rejects
--- Keep the rows that did not parse, with the field and the reason. Reads stage_typed; writes
+-- Keep the rows that did not parse, with the field and the reason. Reads stage_numbered; writes
 -- rejects.
 -- $file_id: the log_files id of this file
 INSERT INTO rejects
 SELECT $file_id, line, problem_field, problem, NULL
-FROM stage_typed WHERE problem IS NOT NULL;
+FROM stage_numbered WHERE problem IS NOT NULL;
 
 -- name: file_by_hash
 -- The file already loaded with these bytes, if any.
@@ -203,9 +250,9 @@ INSERT INTO log_files VALUES (
 );
 
 -- name: load_counts
--- Counts of the staged file after storing. Reads stage_typed, stage_rows, duplicates.
+-- Counts of the staged file after storing. Reads stage_typed, duplicates.
 -- $file_id: the log_files id of this file
 SELECT
-    (SELECT count(*) FROM stage_typed WHERE problem IS NULL) AS parsed,
-    (SELECT count(*) FROM stage_typed WHERE problem IS NOT NULL) AS typed_rejects,
+    (SELECT count(*) FROM stage_typed WHERE problem IS NULL AND NOT blank) AS parsed,
+    (SELECT count(*) FROM stage_typed WHERE problem IS NOT NULL AND NOT blank) AS typed_rejects,
     (SELECT count(*) FROM duplicates WHERE file_id = $file_id) AS duplicates;

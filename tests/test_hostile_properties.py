@@ -70,6 +70,8 @@ def test_any_log_loads_or_is_refused_and_reconciles(rows, fmt, junk, repeat) -> 
             stored = conn.execute("SELECT count(*) FROM searches").fetchall()[0][0]
             kept = conn.execute("SELECT count(*) FROM rejects WHERE reason <> ''").fetchall()[0][0]
             assert (stored, kept) == (result.loaded, result.rejected)
+            keyed = conn.execute("SELECT count(DISTINCT (file_id, line)) FROM searches").fetchall()
+            assert keyed[0][0] == stored  # one search per record (searches has no primary key)
             if repeat:  # the same rows again, in a file with other bytes: all already loaded
                 copy = Path(tmp) / f"copy.{fmt}"
                 copy.write_bytes(data + b"\n")
