@@ -44,11 +44,15 @@ INSERT INTO reviews VALUES ($review_id, $start, $end, $index_id, $settings, now(
 -- $index_id: the index scored against
 -- $min_score: lowest best-page cosine that is not low
 -- $min_coverage: lowest best-page coverage that is not low
+-- The bot test is an anti-join with the bot searches alone (a small hash table), not a join of
+-- every search with its session row.
 INSERT INTO review_queries
 WITH win AS (
-    SELECT s.* FROM searches s
-    LEFT JOIN search_sessions b ON b.file_id = s.file_id AND b.line = s.line
-    WHERE s.searched_at >= $start AND s.searched_at < $end AND NOT coalesce(b.is_bot, false)
+    SELECT s.query, s.query_text, s.user_key, s.session_key, s.results, s.clicks
+    FROM searches s
+    WHERE s.searched_at >= $start AND s.searched_at < $end
+      AND NOT EXISTS (SELECT 1 FROM search_sessions b
+                      WHERE b.is_bot AND b.file_id = s.file_id AND b.line = s.line)
 ), texts AS (
     SELECT query, query_text, count(*) AS n,
            row_number() OVER (PARTITION BY query ORDER BY count(*) DESC, query_text) AS pick
