@@ -18,12 +18,13 @@ from dataclasses import asdict, dataclass, field
 import duckdb
 import numpy as np
 import pandas as pd
+import pyarrow as pa
 import scipy.sparse as sp
 
-from querygap.analyzer import AnalyzerSettings, analyze_series
+from querygap.analyzer import AnalyzerSettings, analyze_codes
 from querygap.errors import StageOrderError
 from querygap.weighting import Weighting, document_frequency, page_weights
-from querygap.workspace import frame, run, transaction
+from querygap.workspace import arrow, frame, run, transaction
 
 
 @dataclass(frozen=True)
@@ -64,42 +65,56 @@ class Index:
         return int(self.vectors.shape[0])
 
 
-def field_counts(pages: pd.DataFrame, settings: IndexSettings) -> tuple[sp.csr_matrix, np.ndarray]:
-    """Weighted term counts of pages (columns title, headings, body) and the term of each column."""
-    parts = []
-    for column, weight in (
+Pages = pd.DataFrame | pa.Table
+
+
+def field_counts(pages: Pages, settings: IndexSettings) -> tuple[sp.csr_matrix, np.ndarray]:
+    """Weighted term counts of pages (columns title, headings, body) and the term of each column.
+
+    Columns are the distinct terms in sorted order (code point order).
+    """
+    fields = (
         ("body", 1.0),
         ("title", settings.title_weight),
         ("headings", settings.heading_weight),
-    ):
-        if weight == 0:
-            continue
-        found = analyze_series(pages[column], settings.analyzer)
-        found["w"] = weight
-        parts.append(found)
-    occ = pd.concat(parts, ignore_index=True)
-    codes, vocab = pd.factorize(occ["term"], sort=True)
+    )
+    found = [(analyze_codes(pages[c], settings.analyzer), w) for c, w in fields if w != 0]
+    # The shared vocabulary in code point order; each field's terms as columns of it.
+    distinct = pd.unique(np.concatenate([np.empty(0, object), *(f.terms for f, _ in found)]))
+    vocab = np.array(sorted(distinct), dtype=object)
+    columns = pd.Index(vocab)
+    rows, cols, weights = [np.empty(0, np.int64)], [np.empty(0, np.int64)], [np.empty(0)]
+    for f, weight in found:
+        rows.append(f.rows)
+        cols.append(columns.get_indexer(f.terms)[f.codes])
+        weights.append(np.full(f.codes.size, weight, np.float64))
     # The sparse constructor sums repeated (row, term) pairs: the weighted count of each term.
     counts = sp.csr_matrix(
-        (occ["w"].to_numpy(np.float64), (occ["row"].to_numpy(), codes)),
+        (np.concatenate(weights), (np.concatenate(rows), np.concatenate(cols))),
         shape=(len(pages), len(vocab)),
     )
     counts.sum_duplicates()
     counts.sort_indices()
-    return counts, np.asarray(vocab, dtype=object)
+    return counts, vocab
 
 
-def fingerprint(pages: pd.DataFrame, settings: IndexSettings) -> str:
+def fingerprint(pages: Pages, settings: IndexSettings) -> str:
     digest = hashlib.sha256(settings.to_json().encode())
-    for doc, h in zip(pages["doc_id"], pages["content_hash"], strict=True):
+    docs, hashes = _texts(pages, "doc_id"), _texts(pages, "content_hash")
+    for doc, h in zip(docs, hashes, strict=True):
         digest.update(f"{doc}\x1f{h}\n".encode())
     return digest.hexdigest()[:16]
 
 
+def _texts(pages: Pages, column: str) -> list[str]:
+    values = pages[column]
+    return values.to_pylist() if isinstance(pages, pa.Table) else list(values)
+
+
 def build_index(conn: duckdb.DuckDBPyConnection, settings: IndexSettings) -> tuple[str, bool]:
     """Make the index of the present pages current; returns (index_id, reused)."""
-    pages = frame(conn, "content_present")
-    if pages.empty:
+    pages = arrow(conn, "content_present")
+    if pages.num_rows == 0:
         raise StageOrderError("no content pages are loaded; run 'querygap add-pages' first")
     index_id = fingerprint(pages, settings)
     if run(conn, "index_exists", {"index_id": index_id}).fetchall()[0][0]:
@@ -108,11 +123,39 @@ def build_index(conn: duckdb.DuckDBPyConnection, settings: IndexSettings) -> tup
         return index_id, True
     counts, vocab = field_counts(pages, settings)
     keep = np.asarray(counts.sum(axis=1)).ravel() > 0
-    counts, doc_ids = counts[keep], pages["doc_id"].to_numpy()[keep]
+    doc_ids = pages["doc_id"].combine_chunks().filter(pa.array(keep))
+    counts = counts[keep]
     vectors, idf = page_weights(counts, settings.weighting)
-    df = document_frequency(counts)
-    cf = np.asarray(counts.sum(axis=0)).ravel()
-    coo = vectors.tocoo()
+    if not np.array_equal(vectors.indptr, counts.indptr):
+        raise AssertionError("page vectors must keep the layout of the counts")
+    n_docs = counts.shape[0]
+    tables = {
+        "index_store_terms": pa.table(
+            {
+                "term_id": np.arange(len(vocab), dtype=np.int32),
+                "term": pa.array(vocab, type=pa.string()),
+                "df": document_frequency(counts).astype(np.int32),
+                "cf": np.asarray(counts.sum(axis=0)).ravel(),
+                "idf": idf,
+            }
+        ),
+        "index_store_doc_rows": pa.table(
+            {
+                "doc_row": np.arange(n_docs, dtype=np.int32),
+                "doc_id": doc_ids,
+                "length": np.asarray(counts.sum(axis=1)).ravel(),
+            }
+        ),
+        # CSR order: row by row, terms ascending within a row (as index_vectors reads them).
+        "index_store_doc_terms": pa.table(
+            {
+                "doc_row": np.repeat(np.arange(n_docs, dtype=np.int32), np.diff(counts.indptr)),
+                "term_id": counts.indices.astype(np.int32),
+                "count": counts.data,
+                "weight": vectors.data,
+            }
+        ),
+    }
     with transaction(conn):
         run(
             conn,
@@ -120,43 +163,14 @@ def build_index(conn: duckdb.DuckDBPyConnection, settings: IndexSettings) -> tup
             {
                 "index_id": index_id,
                 "settings": settings.to_json(),
-                "n_docs": int(counts.shape[0]),
+                "n_docs": int(n_docs),
                 "n_terms": len(vocab),
             },
         )
-        tables = {
-            "terms": pd.DataFrame(
-                {
-                    "index_id": index_id,
-                    "term_id": np.arange(len(vocab), dtype=np.int32),
-                    "term": vocab,
-                    "df": df.astype(np.int32),
-                    "cf": cf,
-                    "idf": idf,
-                }
-            ),
-            "doc_rows": pd.DataFrame(
-                {
-                    "index_id": index_id,
-                    "doc_row": np.arange(len(doc_ids), dtype=np.int32),
-                    "doc_id": doc_ids,
-                    "length": np.asarray(counts.sum(axis=1)).ravel(),
-                }
-            ),
-            "doc_terms": pd.DataFrame(
-                {
-                    "index_id": index_id,
-                    "doc_row": coo.row.astype(np.int32),
-                    "term_id": coo.col.astype(np.int32),
-                    "count": counts.tocoo().data,
-                    "weight": coo.data,
-                }
-            ),
-        }
         for name, data in tables.items():
-            conn.register("index_df", data)
-            conn.execute(f"INSERT INTO {name} SELECT * FROM index_df")
-            conn.unregister("index_df")
+            conn.register("index_new_rows", data)
+            run(conn, name, {"index_id": index_id})
+            conn.unregister("index_new_rows")
         run(conn, "index_make_current", {"index_id": index_id})
         run(conn, "index_retire_others")
     return index_id, False

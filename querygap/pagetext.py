@@ -42,7 +42,8 @@ def _clean(text: str) -> str:
 
 
 def _split_blocks(text: str) -> tuple[str, ...]:
-    return tuple(b for b in (_clean(line) for line in text.split("\n")) if b)
+    # _SPACE holds no line break, so one substitution over the whole text cleans every line.
+    return tuple(b for b in (line.strip() for line in _SPACE.sub(" ", text).split("\n")) if b)
 
 
 def parse_html(html: str) -> ParsedPage:

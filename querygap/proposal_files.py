@@ -115,6 +115,21 @@ def gap_markdown(
     if gaps.empty:
         lines.append("No topics this week: every failing search has a suggested fix.")
     ids = proposals.loc[proposals["kind"] == "content_gap", "proposal_id"].to_numpy()
+    typed = _lines_by_proposal(
+        examples["proposal_id"],
+        [
+            f"  - {md_text(text)} ({int(n)})"
+            for text, n in zip(examples["example"], examples["searches"], strict=True)
+        ],
+    )
+    near = pages[pages.groupby("proposal_id", sort=False).cumcount() < 3]
+    closest = _lines_by_proposal(
+        near["proposal_id"],
+        [
+            f"  - {md_text(title or url)}: {md_url(url)}"
+            for title, url in zip(near["title"], near["url"], strict=True)
+        ],
+    )
     for n, (pid, gap) in enumerate(zip(ids, gaps.itertuples(index=False), strict=True), start=1):
         lines += [
             f"## {n}\\. {md_text(gap.topic)}",
@@ -123,19 +138,23 @@ def gap_markdown(
             f"typed in {int(gap.wordings)} different ways",
             f"- Words no page uses: {md_text(gap.missing_words)}",
             "- What visitors typed (searches):",
+            *typed.get(pid, []),
         ]
-        for row in examples[examples["proposal_id"] == pid].itertuples(index=False):
-            lines.append(f"  - {md_text(row.example)} ({int(row.searches)})")
-        near = pages[pages["proposal_id"] == pid].head(3)
-        if near.empty:
+        if pid not in closest:
             lines.append("- Closest pages: none come close.")
         else:
             lines.append("- Closest pages (they share some words but do not answer):")
-            for page in near.itertuples(index=False):
-                title = md_text(page.title or page.url)
-                lines.append(f"  - {title}: {md_url(page.url)}")
+            lines += closest[pid]
         lines.append("")
     return "\n".join(lines) + "\n"
+
+
+def _lines_by_proposal(ids: pd.Series, lines: list[str]) -> dict[object, list[str]]:
+    """Lines grouped by proposal id, each group in its rows' order (one pass, no filtering)."""
+    grouped: dict[object, list[str]] = {}
+    for pid, line in zip(ids, lines, strict=True):
+        grouped.setdefault(pid, []).append(line)
+    return grouped
 
 
 def write_proposal_files(

@@ -24,7 +24,7 @@ from querygap.errors import OutputError, StageOrderError
 from querygap.indexing import build_index, load_index
 from querygap.proposal_files import write_proposal_files
 from querygap.proposals import awaiting_check, propose, top_fixes
-from querygap.safe_csv import write_csv
+from querygap.safe_csv import write_csv, write_query_csv
 from querygap.scoring import score_queries, store_scores
 from querygap.sessions import SessionSettings, build_sessions, record_review_bots
 from querygap.settings import ReviewSettings, validate
@@ -248,11 +248,20 @@ def export_clusters(conn: duckdb.DuckDBPyConnection, review_id: str, out_dir: Pa
 def export_failing(
     conn: duckdb.DuckDBPyConnection, review_id: str, index_id: str, out_dir: Path
 ) -> Path:
-    """Write failing_queries.csv into ``out_dir`` (created if missing)."""
-    data = failing_queries(conn, review_id, index_id)
+    """Write failing_queries.csv into ``out_dir`` (created if missing).
+
+    DuckDB builds the lines (statement ``review_failing_csv``, the rows and roundings of
+    :func:`failing_queries`), so a million failing queries never become a pandas frame.
+    """
     try:
         out_dir.mkdir(parents=True, exist_ok=True)
-        return write_csv(data, out_dir / "failing_queries.csv")
+        return write_query_csv(
+            conn,
+            "review_failing_csv",
+            {"review_id": review_id, "index_id": index_id},
+            FAILING_COLUMNS,
+            out_dir / "failing_queries.csv",
+        )
     except OSError as exc:
         raise OutputError(
             f"{out_dir}: cannot write the review's files there ({exc.strerror or exc}); "

@@ -12,17 +12,34 @@ double quotes around a field only when it holds a comma, a double quote or a lin
 (``csv.QUOTE_MINIMAL``; an inner double quote is doubled), CRLF line ends as RFC 4180 specifies,
 a header row, no index column. Numeric columns are written as numbers and never prefixed, so a
 negative number stays a number.
+
+:func:`write_query_csv` writes the same format from a named query whose rows DuckDB has already
+formatted as CSV lines (the macros of ``sql/csv.sql``), for exports too large for a pandas round
+trip.
 """
 
 from __future__ import annotations
 
 import csv
+import io
 import os
+from collections.abc import Mapping, Sequence
 from pathlib import Path
+from typing import Any
 
+import duckdb
 import pandas as pd
+import pyarrow as pa
 
-__all__ = ["FORMULA_TRIGGERS", "neutralize_cell", "neutralize_frame", "write_csv"]
+from querygap.workspace import arrow, run
+
+__all__ = [
+    "FORMULA_TRIGGERS",
+    "neutralize_cell",
+    "neutralize_frame",
+    "write_csv",
+    "write_query_csv",
+]
 
 #: First characters that make a spreadsheet treat a cell as a formula (OWASP; CWE-1236).
 FORMULA_TRIGGERS: tuple[str, ...] = ("=", "+", "-", "@", "\t", "\r", "\0")
@@ -95,3 +112,56 @@ def write_csv(df: pd.DataFrame, path: Path) -> Path:
     )
     os.replace(partial, path)
     return path
+
+
+def csv_header(columns: Sequence[str]) -> str:
+    """The header row of :func:`write_csv` for ``columns`` (neutralised, quoted as needed)."""
+    buffer = io.StringIO()
+    writer = csv.writer(buffer, quoting=csv.QUOTE_MINIMAL, lineterminator="\r\n")
+    writer.writerow([neutralize_cell(c) for c in columns])
+    return buffer.getvalue()
+
+
+def write_query_csv(
+    conn: duckdb.DuckDBPyConnection,
+    name: str,
+    params: Mapping[str, Any],
+    columns: Sequence[str],
+    path: Path,
+) -> Path:
+    """Write the CSV lines of named query ``name`` under a header of ``columns``.
+
+    The query returns one column ``line``: each row's cells made with the ``csv_macros`` of
+    ``sql/csv.sql`` (given ``$triggers``, :data:`FORMULA_TRIGGERS`) and ending in CR LF, so the
+    file has the format of :func:`write_csv`. Lines go from DuckDB's Arrow buffers to the file
+    without a Python object per row; the file is written under a temporary name and renamed.
+
+    Returns
+    -------
+    pathlib.Path
+        ``path``.
+    """
+    run(conn, "csv_macros")
+    lines = arrow(conn, name, {**params, "triggers": list(FORMULA_TRIGGERS)})["line"]
+    path = Path(path)
+    partial = path.with_name(path.name + ".partial")
+    with open(partial, "wb") as out:
+        out.write(csv_header(columns).encode("utf-8"))
+        for chunk in lines.chunks:
+            _write_strings(out, chunk)
+    os.replace(partial, path)
+    return path
+
+
+def _write_strings(out: io.BufferedWriter, chunk: pa.Array) -> None:
+    """Write the UTF-8 bytes of an Arrow string array, values back to back."""
+    if chunk.null_count:
+        raise ValueError("a CSV line is NULL; every cell macro must give text")
+    chunk = chunk.cast(pa.large_string())
+    if len(chunk) == 0:
+        return
+    _, offsets, data = chunk.buffers()
+    ends = memoryview(offsets).cast("q")
+    first, last = ends[chunk.offset], ends[chunk.offset + len(chunk)]
+    if last > first:
+        out.write(memoryview(data)[first:last])

@@ -16,9 +16,10 @@ from typing import Any
 
 import duckdb
 import pandas as pd
+import pyarrow as pa
 
 from querygap.errors import SchemaError, WorkspaceBusyError
-from querygap.sqlfiles import SQL_DIR, statement
+from querygap.sqlfiles import SQL_DIR, Statement, statement
 
 DEFAULT_WORKSPACE = Path("querygap.duckdb")
 SCHEMA_DIR = SQL_DIR / "schema"
@@ -134,6 +135,12 @@ def run(
 ) -> duckdb.DuckDBPyConnection:
     """Execute the named statement from ``sql/`` with its ``$parameters`` bound from ``params``."""
     stmt = statement(name)
+    given = _check_params(stmt, name, params)
+    return conn.execute(stmt.sql, given) if given else conn.execute(stmt.sql)
+
+
+def _check_params(stmt: Statement, name: str, params: Mapping[str, Any] | None) -> dict[str, Any]:
+    """The parameters of a named statement, refused when one is missing or unexpected."""
     given = dict(params or {})
     missing = stmt.params - given.keys()
     extra = given.keys() - stmt.params
@@ -142,7 +149,7 @@ def run(
             f"{stmt.origin}: statement '{name}' takes {sorted(stmt.params)}; "
             f"missing {sorted(missing)}, unexpected {sorted(extra)}"
         )
-    return conn.execute(stmt.sql, given) if given else conn.execute(stmt.sql)
+    return given
 
 
 def frame(
@@ -162,3 +169,12 @@ def transaction(conn: duckdb.DuckDBPyConnection) -> Iterator[duckdb.DuckDBPyConn
         conn.execute("ROLLBACK")
         raise
     conn.execute("COMMIT")
+
+
+def arrow(
+    conn: duckdb.DuckDBPyConnection, name: str, params: Mapping[str, Any] | None = None
+) -> pa.Table:
+    """Run a named query and return its result as an Arrow table (no pandas round trip)."""
+    stmt = statement(name)
+    given = _check_params(stmt, name, params)
+    return conn.sql(stmt.sql, params=given or None).to_arrow_table()

@@ -22,6 +22,23 @@ DELETE FROM terms WHERE index_id NOT IN (SELECT index_id FROM indexes WHERE curr
 -- $n_terms: distinct terms
 INSERT INTO indexes VALUES ($index_id, $settings, $n_docs, $n_terms, now(), false);
 
+-- name: index_store_terms
+-- Store the terms of a new index from the registered Arrow table index_new_rows
+-- (term_id, term, df, cf, idf). Writes terms.
+-- $index_id: the new index
+INSERT INTO terms SELECT $index_id, term_id, term, df, cf, idf FROM index_new_rows;
+
+-- name: index_store_doc_rows
+-- Store the pages of a new index from index_new_rows (doc_row, doc_id, length). Writes doc_rows.
+-- $index_id: the new index
+INSERT INTO doc_rows SELECT $index_id, doc_row, doc_id, length FROM index_new_rows;
+
+-- name: index_store_doc_terms
+-- Store the page vectors of a new index from index_new_rows (doc_row, term_id, count, weight).
+-- Writes doc_terms.
+-- $index_id: the new index
+INSERT INTO doc_terms SELECT $index_id, doc_row, term_id, count, weight FROM index_new_rows;
+
 -- name: index_current
 -- The current index, if any.
 SELECT index_id, settings, n_docs, n_terms FROM indexes WHERE current;

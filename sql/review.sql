@@ -44,11 +44,15 @@ INSERT INTO reviews VALUES ($review_id, $start, $end, $index_id, $settings, now(
 -- $index_id: the index scored against
 -- $min_score: lowest best-page cosine that is not low
 -- $min_coverage: lowest best-page coverage that is not low
+-- The bot test is an anti-join with the bot searches alone (a small hash table), not a join of
+-- every search with its session row.
 INSERT INTO review_queries
 WITH win AS (
-    SELECT s.* FROM searches s
-    LEFT JOIN search_sessions b ON b.file_id = s.file_id AND b.line = s.line
-    WHERE s.searched_at >= $start AND s.searched_at < $end AND NOT coalesce(b.is_bot, false)
+    SELECT s.query, s.query_text, s.user_key, s.session_key, s.results, s.clicks
+    FROM searches s
+    WHERE s.searched_at >= $start AND s.searched_at < $end
+      AND NOT EXISTS (SELECT 1 FROM search_sessions b
+                      WHERE b.is_bot AND b.file_id = s.file_id AND b.line = s.line)
 ), texts AS (
     SELECT query, query_text, count(*) AS n,
            row_number() OVER (PARTITION BY query ORDER BY count(*) DESC, query_text) AS pick
@@ -107,4 +111,44 @@ SELECT r.query, r.example, r.searches, r.visitors, r.status, r.best_score, r.cov
        r.engine_searches, r.engine_empty, r.click_searches, r.clicked
 FROM review_queries r LEFT JOIN documents d ON d.doc_id = r.best_doc
 WHERE r.review_id = $review_id AND r.status <> 'ok'
+ORDER BY r.searches DESC, r.query;
+
+-- name: review_failing_csv
+-- failing_queries.csv's rows as CSV lines ending in CR LF, in the order and columns of
+-- review_failing plus the shares (review.FAILING_COLUMNS); keep the two statements in step.
+-- Shares are engine_empty / engine_searches and clicked / click_searches (empty when the log has
+-- no such signal), rounded to 3 places; best_score and coverage to 4. Needs csv_macros.
+-- Reads review_queries, query_terms, documents.
+-- $review_id: the review
+-- $index_id: the index the review scored against
+-- $triggers: first characters that make a cell a formula (safe_csv.FORMULA_TRIGGERS)
+WITH failing AS (
+    SELECT * FROM review_queries WHERE review_id = $review_id AND status <> 'ok'
+), terms AS (
+    SELECT t.query,
+           string_agg(t.term, ' ' ORDER BY t.position) FILTER (WHERE NOT t.in_best) AS unmatched,
+           string_agg(t.term, ' ' ORDER BY t.position) FILTER (WHERE t.df = 0) AS unknown
+    FROM query_terms t SEMI JOIN failing f ON f.query = t.query
+    WHERE t.index_id = $index_id
+    GROUP BY t.query
+)
+SELECT csv_text(r.query, $triggers) || ','
+       || csv_number(r.searches) || ','
+       || csv_text(r.status, $triggers) || ','
+       || csv_number(csv_round(r.best_score, 4)) || ','
+       || csv_number(csv_round(r.coverage, 4)) || ','
+       || csv_text(coalesce(t.unmatched, ''), $triggers) || ','
+       || csv_text(coalesce(d.url, r.best_doc, ''), $triggers) || ','
+       || csv_text(r.example, $triggers) || ','
+       || csv_text(coalesce(t.unknown, ''), $triggers) || ','
+       || csv_text(coalesce(d.title, ''), $triggers) || ','
+       || csv_number(r.visitors) || ','
+       || csv_number(CASE WHEN r.engine_searches > 0
+                          THEN csv_round(r.engine_empty / r.engine_searches, 3) END) || ','
+       || csv_number(CASE WHEN r.click_searches > 0
+                          THEN csv_round(r.clicked / r.click_searches, 3) END)
+       || chr(13) || chr(10) AS line
+FROM failing r
+LEFT JOIN terms t ON t.query = r.query
+LEFT JOIN documents d ON d.doc_id = r.best_doc
 ORDER BY r.searches DESC, r.query;

@@ -98,7 +98,8 @@ DELETE FROM review_bots WHERE review_id = $review_id;
 
 -- name: sessions_review_bots
 -- Bot and suspect searches of a review window, and their distinct actor keys. Reads searches,
--- search_sessions, session_traffic; writes review_bots.
+-- search_sessions, session_traffic; writes review_bots. Only bot and suspect sessions are
+-- joined (human ones count nowhere here), so the join is as small as they are.
 -- $review_id: the review
 -- $start: window start (inclusive)
 -- $end: window end (exclusive)
@@ -111,7 +112,7 @@ SELECT $review_id,
 FROM searches s
 JOIN search_sessions ss ON ss.file_id = s.file_id AND ss.line = s.line
 JOIN session_traffic t ON t.session_id = ss.session_id
-WHERE s.searched_at >= $start AND s.searched_at < $end;
+WHERE s.searched_at >= $start AND s.searched_at < $end AND t.verdict IN ('bot', 'suspect');
 
 -- name: sessions_review_bot_keys
 -- The bot actors of a review window with their searches there, most first.

@@ -3,10 +3,12 @@
 from __future__ import annotations
 
 import pandas as pd
+import pyarrow as pa
 import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
+from querygap import analyzer
 from querygap.analyzer import AnalyzerSettings, analyze, analyze_series
 
 
@@ -53,3 +55,36 @@ def test_series_equals_one_by_one(texts: list[str]) -> None:
 def test_analysis_is_idempotent_on_its_own_output(text: str) -> None:
     terms = analyze(text)
     assert analyze(" ".join(terms)) == terms
+
+
+def _whole_text_terms(text: str, settings: AnalyzerSettings) -> list[str]:
+    """The documented steps applied to one whole text: fold, TOKEN over it all, steps 4-6."""
+    folded = analyzer.fold(pd.Series([text], dtype=object))[0]
+    tokens = analyzer.TOKEN.findall(folded)
+    mapping = analyzer._finish(dict.fromkeys(tokens), settings)
+    return [term for token in tokens for term in mapping[token]]
+
+
+# Pieces that meet the analyzer's edge cases: joiners, suffixes, placeholders, Unicode spaces,
+# letters whose folding changes length (ß, İ), full-width forms and an underscore.
+_FRAGMENTS = st.sampled_from(
+    ["a", "Z", "é", "9", " ", ".", "-", "'", "'s", "+", "++", "#", "_", "[", "]", "[email]",
+     "\t", "\n", "\u00a0", "\u2003", "\u3000", "ß", "İ", "ＳＭ", "c", "x1", "ﬁ", "٣", "\u0301"]
+)  # fmt: skip
+
+
+@settings(max_examples=200, deadline=None)
+@given(
+    st.lists(st.lists(_FRAGMENTS, max_size=12).map("".join), min_size=1, max_size=6),
+    st.booleans(),
+)
+def test_bulk_analysis_equals_tokenizing_each_whole_text(texts: list[str], stem: bool) -> None:
+    # The bulk path splits texts at white space and folds ASCII texts with Arrow kernels; the
+    # terms must be those of the regex over each whole folded text, in the same order.
+    chosen = AnalyzerSettings(stem=stem, stop_words=stem)
+    long = analyze_series(pd.Series(texts), chosen)
+    coded = analyzer.analyze_codes(pa.array(texts), chosen)
+    assert list(coded.rows) == list(long["row"])
+    assert list(coded.terms[coded.codes]) == list(long["term"])
+    for i, text in enumerate(texts):
+        assert list(long.loc[long["row"] == i, "term"]) == _whole_text_terms(text, chosen)
