@@ -133,5 +133,7 @@ def candidate_pairs(
     if not rows:
         return none, none
     flat = np.sort(np.concatenate(rows) * len(choices) + np.concatenate(cols))
+    if not flat.size:
+        return none, none
     flat = flat[np.r_[True, flat[1:] != flat[:-1]]]
     return flat // len(choices), flat % len(choices)

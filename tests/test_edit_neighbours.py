@@ -67,3 +67,8 @@ def test_any_words_get_every_pair_within_their_limit(
 def test_empty_inputs_give_no_pairs() -> None:
     assert _found([], [], ["a"]) == set()
     assert _found(["a"], [1], []) == set()
+
+
+def test_keys_that_meet_only_beyond_the_limit_give_no_pairs() -> None:
+    # "b" (2 deletions allowed) and "aaa" share no key: found by hypothesis as an edge case.
+    assert _found(["a", "b"], [0, 2], ["aaa"]) == _within(["a", "b"], [0, 2], ["aaa"]) == set()
