@@ -71,3 +71,26 @@ def test_skipping_candidates_changes_no_proposal(
     assert len(proposals) > 0
     pd.testing.assert_frame_equal(proposals, all_proposals)
     pd.testing.assert_frame_equal(examples, all_examples)
+
+
+def test_an_early_stop_keeps_a_lower_bound_and_the_rest_exact(
+    demo_db: Path, monkeypatch: pytest.MonkeyPatch
+) -> None:
+    # Against re-scoring every query of the same candidates (rescued_searches): a candidate
+    # re-scored to the end has the same figure, one stopped early a figure no higher.
+    real, full = stage.rescued_unless_beaten, stage.rescued_searches
+    checked = []
+
+    def checking(sequences, cands, *args, **kwargs):  # type: ignore[no-untyped-def]
+        found, exact = real(sequences, cands, *args, **kwargs)
+        every = full(sequences, cands, *args[:4])
+        assert (found <= every).all()
+        assert (found[exact] == every[exact]).all()
+        checked.append(len(cands))
+        return found, exact
+
+    monkeypatch.setattr(stage, "rescued_unless_beaten", checking)
+    conn = connect(demo_db)
+    stage.propose(conn, "2026-W46")
+    conn.close()
+    assert sum(checked) > 0
