@@ -20,6 +20,7 @@ import pandas as pd
 from rapidfuzz import process
 from rapidfuzz.distance import OSA, Indel
 
+from querygap.edit_neighbours import candidate_pairs
 from querygap.stats import signed_llr
 
 #: Longest word that still gets no spelling candidate, and the longest that gets only one edit.
@@ -40,14 +41,13 @@ def edit_distance(a: str, b: str) -> int:
     return int(OSA.distance(a, b))
 
 
-def spelling_candidates(
-    terms: Sequence[str], vocab: pd.DataFrame, chunk: int = 512, limit: int = 5
-) -> pd.DataFrame:
+def spelling_candidates(terms: Sequence[str], vocab: pd.DataFrame, limit: int = 5) -> pd.DataFrame:
     """Content terms within the allowed edit distance of each term, best first.
 
-    The terms of one length L are compared at once (``rapidfuzz.process.cdist``, in chunks of
-    ``chunk`` terms, with a distance cut-off) with the content terms of length L - allowed to
-    L + allowed only: the distance is never below the difference in length.
+    Only the pairs that share a deletion key (:func:`querygap.edit_neighbours.candidate_pairs`,
+    a superset of the pairs within the limit) get their distance computed
+    (``rapidfuzz.process.cpdist``), so the cost grows with the near pairs, not with terms x
+    content terms.
 
     Parameters
     ----------
@@ -73,48 +73,24 @@ def spelling_candidates(
     choices = vocab["term"].to_numpy(object)
     if not len(words) or not len(choices):
         return pd.DataFrame({c: [] for c in columns})
-    # The distance is at least the difference in length: a word of length L is compared only
-    # with the content terms of length L - allowed .. L + allowed.
-    lengths = np.fromiter((len(w) for w in words), np.int64, len(words))
-    choice_len = np.fromiter((len(c) for c in choices), np.int64, len(choices))
-    by_len = np.argsort(choice_len, kind="stable")
-    sorted_len = choice_len[by_len]
-    parts = []
-    for length in np.unique(lengths):
-        mine = np.flatnonzero(lengths == length)
-        edits = int(allowed[mine[0]])
-        lo = np.searchsorted(sorted_len, length - edits, side="left")
-        hi = np.searchsorted(sorted_len, length + edits, side="right")
-        near = by_len[lo:hi]
-        if not len(near):
-            continue
-        for start in range(0, len(mine), chunk):
-            rows = mine[start : start + chunk]
-            dist = process.cdist(
-                words[rows],
-                choices[near],
-                scorer=OSA.distance,
-                score_cutoff=2,
-                dtype=np.int8,
-                workers=-1,
-            )
-            r, c = np.nonzero((dist <= edits) & (dist > 0))
-            c_vocab = near[c]
-            parts.append(
-                pd.DataFrame(
-                    {
-                        "term": words[rows][r],
-                        "suggestion": choices[c_vocab],
-                        "distance": dist[r, c].astype(np.int64),
-                        "allowed": allowed[rows][r],
-                        "df": vocab["df"].to_numpy()[c_vocab],
-                        "ok_searches": vocab["ok_searches"].to_numpy()[c_vocab],
-                    }
-                )
-            )
-    if not parts:
+    # Only the pairs sharing a deletion key can be within the limit (querygap.edit_neighbours):
+    # their exact distance is computed, never that of all word x content-term pairs.
+    rows, cols = candidate_pairs(words, allowed, choices)
+    dist = process.cpdist(words[rows], choices[cols], scorer=OSA.distance, workers=-1)
+    near = (dist >= 1) & (dist <= allowed[rows])
+    rows, cols = rows[near], cols[near]
+    if not len(rows):
         return pd.DataFrame({c: [] for c in columns})
-    found = pd.concat(parts, ignore_index=True)
+    found = pd.DataFrame(
+        {
+            "term": words[rows],
+            "suggestion": choices[cols],
+            "distance": dist[near].astype(np.int64),
+            "allowed": allowed[rows],
+            "df": vocab["df"].to_numpy()[cols],
+            "ok_searches": vocab["ok_searches"].to_numpy()[cols],
+        }
+    )
     # Tie-breaks that need no data: typos seldom touch the first letter (from memory), and a
     # candidate sharing more letters in order (fewer insertions + deletions) is closer.
     found["first"] = found["term"].str[0] == found["suggestion"].str[0]

@@ -43,7 +43,10 @@ are those of re-scoring every candidate. Since confidence <= prior:
   whose prior is under half the term's best confidence, or under its ``max_candidates``-th best,
   can no longer be; they are re-scored best prior first, while they can still be proposed;
 - the rest count only through a content-gap topic's confidence (the highest over its terms'
-  candidates): re-scored best prior first, only while their prior exceeds the topic's best.
+  candidates): re-scored best prior first, only while their prior exceeds the topic's best,
+  and each one's queries most searched first, stopping as soon as rescuing every search left
+  could not lift its confidence above the topic's best (its stored confidence is then a lower
+  bound, at most that best, so no topic's highest confidence changes).
 
 "Best prior first" runs in rounds of the best 1, 2, 4, ... per term or topic. Each distinct
 rewritten query is scored once per round.
@@ -71,7 +74,15 @@ from querygap.proposal_candidates import (
     select_fixes,
 )
 from querygap.proposal_settings import ProposalSettings
-from querygap.rescoring import measure, rescued_searches, rewrite, sequences_of, status_of, volume
+from querygap.rescoring import (
+    measure,
+    rescued_searches,
+    rescued_unless_beaten,
+    rewrite,
+    sequences_of,
+    status_of,
+    volume,
+)
 from querygap.workspace import frame, run, transaction
 
 __all__ = [
@@ -199,7 +210,36 @@ def measure_what_counts(
             measured[mask] = True
         cands["confidence"] = confidence(cands, settings)
 
-    def in_rounds(group: pd.Series, wanted: pd.Series, can_count: Callable[[], pd.Series]) -> None:
+    def rescore_unless_beaten(mask: pd.Series, group: pd.Series) -> None:
+        """Re-score, stopping a candidate's queries as soon as even rescuing all the rest
+        could not lift its confidence above its group's best (stored: a lower bound)."""
+        sub = cands[mask]
+        best = cands["confidence"].groupby(group).max()
+        floor = best.reindex(group[mask]).to_numpy()
+
+        def can_matter(positions: np.ndarray, most: np.ndarray) -> np.ndarray:
+            trial = sub.iloc[positions].assign(rescued=most)
+            return confidence(trial, settings) > floor[positions]
+
+        found, _exact = rescued_unless_beaten(
+            sequences,
+            sub,
+            n,
+            index,
+            thresholds["min_score"],
+            thresholds["min_coverage"],
+            can_matter,
+        )
+        cands.loc[mask, "rescued"] = found.to_numpy()
+        measured[mask] = True
+        cands["confidence"] = confidence(cands, settings)
+
+    def in_rounds(
+        group: pd.Series,
+        wanted: pd.Series,
+        can_count: Callable[[], pd.Series],
+        measure: Callable[[pd.Series], None] = rescore,
+    ) -> None:
         """Re-score the wanted candidates best prior first (1, 2, 4, ... per group and round)
         while ``can_count()`` says their result can still matter."""
         size = 1
@@ -207,7 +247,7 @@ def measure_what_counts(
             order = pd.DataFrame({"group": group[pending], "bound": bound[pending]})
             order = order.sort_values("bound", ascending=False, kind="mergesort")
             heads = order[order.groupby("group").cumcount() < size].index
-            rescore(pd.Series(cands.index.isin(heads), index=cands.index))
+            measure(pd.Series(cands.index.isin(heads), index=cands.index))
             size *= 2
 
     may_convince = (bound >= settings.min_confidence) & (cands["searches"] >= settings.min_searches)
@@ -240,7 +280,12 @@ def measure_what_counts(
         best = cands["confidence"].groupby(topic).max()
         return bound > best.reindex(topic).to_numpy()
 
-    in_rounds(topic, topic.notna() & (cands["searches"] > 0), may_beat)
+    in_rounds(
+        topic,
+        topic.notna() & (cands["searches"] > 0),
+        may_beat,
+        lambda mask: rescore_unless_beaten(mask, topic),
+    )
     return cands, good, topics, topic_queries
 
 

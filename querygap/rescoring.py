@@ -10,6 +10,8 @@ produce it, so the cost grows with the distinct rewritten queries of the candida
 
 from __future__ import annotations
 
+from collections.abc import Callable
+
 import numpy as np
 import pandas as pd
 
@@ -72,9 +74,15 @@ def rewrite(sequences: pd.DataFrame, candidates: pd.DataFrame) -> pd.DataFrame:
     DataFrame with columns cand, row, rewritten (the terms joined by spaces).
     """
     seq, cand = _prepared(sequences, candidates)
-    pairs = _pairs(seq, cand)
-    full = pairs.merge(seq, on="row").merge(
-        cand[["cand", "first", "second", "suggestion"]], on="cand"
+    return _rewritten(seq, cand, _pairs(seq, cand))
+
+
+def _rewritten(seq: pd.DataFrame, cand: pd.DataFrame, pairs: pd.DataFrame) -> pd.DataFrame:
+    """The rewritten query of each (cand, row) pair of ``pairs`` (see :func:`rewrite`)."""
+    full = (
+        pairs[["cand", "row"]]
+        .merge(seq, on="row")
+        .merge(cand[["cand", "first", "second", "suggestion"]], on="cand")
     )
     full = full.sort_values(["cand", "row", "pos"], kind="mergesort")
     prev = (
@@ -157,3 +165,61 @@ def measure(
     out["queries"] = counts["queries"].to_numpy()
     out["rescued"] = rescued_searches(occ, candidates, n, index, min_score, min_coverage).to_numpy()
     return out
+
+
+def rescued_unless_beaten(
+    sequences: pd.DataFrame,
+    candidates: pd.DataFrame,
+    searches: np.ndarray,
+    index: Index,
+    min_score: float,
+    min_coverage: float,
+    can_matter: Callable[[np.ndarray, np.ndarray], np.ndarray],
+    first: int = 16,
+) -> tuple[pd.Series, pd.Series]:
+    """Rescued searches of each candidate, stopping early for a candidate that cannot matter.
+
+    A candidate's queries are re-scored most searched first, in waves of ``first``, then twice
+    as many, and so on. After each wave its rescued searches lie between ``found`` (the
+    rescued so far) and ``found + left`` (``left`` the searches not yet re-scored);
+    ``can_matter(cand_positions, found + left)`` says, per candidate, whether so many rescued
+    searches could still change a result. A candidate that cannot is left with ``found``, a
+    lower bound; every other one is re-scored to the end, so its figure is exact.
+
+    Returns
+    -------
+    (rescued, exact): both indexed by ``cand``; ``exact`` False where re-scoring stopped early.
+    """
+    seq, cand = _prepared(sequences, candidates)
+    pairs = _pairs(seq, cand)
+    position = pd.Index(cand["cand"].to_numpy()).get_indexer(pairs["cand"].to_numpy())
+    pairs = pairs.assign(pos=position, n=np.asarray(searches)[pairs["row"].to_numpy()])
+    pairs = pairs.sort_values(["pos", "n", "row"], ascending=[True, False, True], kind="mergesort")
+    rank = pairs.groupby("pos").cumcount().to_numpy()
+    pos_of, n_of = pairs["pos"].to_numpy(), pairs["n"].to_numpy()
+    left = np.bincount(pos_of, weights=n_of, minlength=len(cand)).astype(np.int64)
+    found = np.zeros(len(cand), np.int64)
+    active = np.ones(len(cand), bool)
+    lo, hi = 0, first
+    while active.any():
+        wave = (rank >= lo) & (rank < hi) & active[pos_of]
+        if not wave.any():
+            break
+        part = pairs[wave]
+        done = _rewritten(seq, cand, part)
+        unique, codes = np.unique(done["rewritten"].to_numpy(object), return_inverse=True)
+        scores = score_queries(pd.Series(unique, dtype=object), index).scores
+        ok = (status_of(scores, min_score, min_coverage) == "ok").to_numpy()[codes]
+        done_pos = pd.Index(cand["cand"].to_numpy()).get_indexer(done["cand"].to_numpy())
+        got = np.where(ok, np.asarray(searches)[done["row"].to_numpy()], 0)
+        found += np.bincount(done_pos, weights=got, minlength=len(cand)).astype(np.int64)
+        left -= np.bincount(part["pos"], weights=part["n"], minlength=len(cand)).astype(np.int64)
+        still = np.flatnonzero(active & (left > 0))
+        active[:] = False
+        active[still] = can_matter(still, found[still] + left[still])
+        lo, hi = hi, hi + 2 * (hi - lo)
+    ids = cand["cand"].to_numpy()
+    return (
+        pd.Series(found, index=ids, dtype=np.int64),
+        pd.Series(left == 0, index=ids, dtype=bool),
+    )

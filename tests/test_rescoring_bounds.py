@@ -2,7 +2,8 @@
 
 The stage skips a candidate when its prior (an upper bound of its confidence) shows its rescued
 searches cannot change what is proposed or a gap's confidence. Giving every candidate the prior
-1 turns every skip off: the proposals must come out the same, field for field.
+1 turns every skip off, and re-scoring every query of a candidate turns the early stop of the
+gap-topic rounds off: the proposals must come out the same, field for field.
 """
 
 from __future__ import annotations
@@ -27,22 +28,35 @@ def demo_db(tmp_path_factory: pytest.TempPathFactory) -> Iterator[Path]:
     yield root / "demo.duckdb"
 
 
-def _run(db: Path, review_id: str) -> tuple[pd.DataFrame, pd.DataFrame, int]:
-    """The stored proposals and examples, and how many candidates were re-scored."""
+def _run(
+    db: Path, review_id: str, stop_early: bool = True
+) -> tuple[pd.DataFrame, pd.DataFrame, int]:
+    """The stored proposals and examples, and how many candidates were re-scored.
+
+    ``stop_early=False`` re-scores every query of every candidate asked for (no early stop).
+    """
     seen = []
-    real = stage.rescued_searches
+    real, real_unless = stage.rescued_searches, stage.rescued_unless_beaten
 
     def counting(sequences, cands, *args, **kwargs):  # type: ignore[no-untyped-def]
         seen.append(len(cands))
         return real(sequences, cands, *args, **kwargs)
 
+    def counting_unless(sequences, cands, *args, **kwargs):  # type: ignore[no-untyped-def]
+        seen.append(len(cands))
+        if stop_early:
+            return real_unless(sequences, cands, *args, **kwargs)
+        found = real(sequences, cands, *args[:4])
+        return found, pd.Series(True, index=found.index)
+
     stage.rescued_searches = counting
+    stage.rescued_unless_beaten = counting_unless
     try:
         conn = connect(db)
         done = stage.propose(conn, review_id)
         conn.close()
     finally:
-        stage.rescued_searches = real
+        stage.rescued_searches, stage.rescued_unless_beaten = real, real_unless
     return done.proposals, done.examples, sum(seen)
 
 
@@ -52,8 +66,31 @@ def test_skipping_candidates_changes_no_proposal(
 ) -> None:
     proposals, examples, rescored = _run(demo_db, review_id)
     monkeypatch.setattr(stage, "prior", lambda cands, _settings: np.ones(len(cands)))
-    all_proposals, all_examples, all_rescored = _run(demo_db, review_id)
+    all_proposals, all_examples, all_rescored = _run(demo_db, review_id, stop_early=False)
     assert rescored < all_rescored  # the bounds do skip candidates on the demo
     assert len(proposals) > 0
     pd.testing.assert_frame_equal(proposals, all_proposals)
     pd.testing.assert_frame_equal(examples, all_examples)
+
+
+def test_an_early_stop_keeps_a_lower_bound_and_the_rest_exact(
+    demo_db: Path, monkeypatch: pytest.MonkeyPatch
+) -> None:
+    # Against re-scoring every query of the same candidates (rescued_searches): a candidate
+    # re-scored to the end has the same figure, one stopped early a figure no higher.
+    real, full = stage.rescued_unless_beaten, stage.rescued_searches
+    checked = []
+
+    def checking(sequences, cands, *args, **kwargs):  # type: ignore[no-untyped-def]
+        found, exact = real(sequences, cands, *args, **kwargs)
+        every = full(sequences, cands, *args[:4])
+        assert (found <= every).all()
+        assert (found[exact] == every[exact]).all()
+        checked.append(len(cands))
+        return found, exact
+
+    monkeypatch.setattr(stage, "rescued_unless_beaten", checking)
+    conn = connect(demo_db)
+    stage.propose(conn, "2026-W46")
+    conn.close()
+    assert sum(checked) > 0
