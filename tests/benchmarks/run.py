@@ -321,6 +321,11 @@ def main(argv: list[str] | None = None) -> int:
     parser.add_argument(
         "--skip", default="", help="comma-separated references to leave out, e.g. hand_written"
     )
+    parser.add_argument(
+        "--scorers-only",
+        action="store_true",
+        help="time only the scorers, on the workspace a finished run left in --folder",
+    )
     parser.add_argument("--child", choices=["review", "scorers"], help=argparse.SUPPRESS)
     args = parser.parse_args(argv)
     skip = {s for s in args.skip.split(",") if s}
@@ -352,7 +357,12 @@ def main(argv: list[str] | None = None) -> int:
     ensure(size, workload)
     print(f"workload ready in {time.perf_counter() - w0:.1f} s in {workload}", flush=True)
     common = ["--size", size.name, "--workload", str(workload), "--folder", str(folder)]
-    review_rows, review_peak, s1 = run_child([*common, "--child", "review"])
+    review_rows, review_peak, s1 = [], 0, 0
+    if args.scorers_only:
+        if not (folder / "ws.duckdb").exists():
+            parser.error(f"--scorers-only needs a finished run's workspace in {folder}")
+    else:
+        review_rows, review_peak, s1 = run_child([*common, "--child", "review"])
     scorer_rows, scorer_peak, s2 = [], 0, 0
     if s1:
         print("the review failed (see above); the scorers need its index, so they are left out")
