@@ -131,6 +131,7 @@ def _kernel_py(
     dense_slot: np.ndarray,
     dense: np.ndarray,
     order: np.ndarray,
+    chunk_order: np.ndarray,
     n_docs: int,
     k: int,
     chunk: int,
@@ -141,13 +142,15 @@ def _kernel_py(
 ) -> None:
     """Fill ``out_doc``/``out_val`` (n_queries, k) with each query's top pages (-1/0 when fewer).
 
-    Queries are taken in the sequence ``order``; ``dense[dense_slot[t]]`` is term t's weights
+    Queries are taken in the sequence ``order``, chunk ``chunk_order[i]`` as the i-th parallel
+    task; ``dense[dense_slot[t]]`` is term t's weights
     as a dense row when ``dense_slot[t] >= 0``. ``stats[c]`` gets (postings scanned, look-ups,
     queries that stopped early) of chunk c.
     """
     n_q = q_ptr.size - 1
     n_chunks = (n_q + chunk - 1) // chunk
-    for c in prange(n_chunks):
+    for ci in prange(n_chunks):
+        c = chunk_order[ci]
         acc = np.zeros(n_docs, np.float64)
         touched = np.empty(n_docs + 1, np.int32)
         top_d = np.empty(k, np.int64)
@@ -354,6 +357,9 @@ def top_k_compiled(
         slot,
         rows,
         locality_order(weights),
+        # Chunks in a fixed shuffled order: the threads' share of the heavy chunks (those of
+        # common terms, which the locality order puts together) evens out.
+        np.random.default_rng(0).permutation(n_chunks).astype(np.int64),
         postings.shape[1],
         k,
         chunk,
