@@ -14,6 +14,7 @@ from __future__ import annotations
 import hashlib
 import json
 from dataclasses import asdict, dataclass, field
+from functools import cached_property
 
 import duckdb
 import numpy as np
@@ -23,6 +24,7 @@ import scipy.sparse as sp
 
 from querygap.analyzer import AnalyzerSettings, analyze_codes
 from querygap.errors import StageOrderError
+from querygap.scoring_kernel import Postings, prepare_postings
 from querygap.weighting import Weighting, document_frequency, page_weights
 from querygap.workspace import arrow, frame, run, transaction
 
@@ -63,6 +65,11 @@ class Index:
     @property
     def n_docs(self) -> int:
         return int(self.vectors.shape[0])
+
+    @cached_property
+    def postings(self) -> Postings:
+        """The page vectors as the scorer's postings, made on first use and kept."""
+        return prepare_postings(self.vectors.T.tocsr())
 
 
 Pages = pd.DataFrame | pa.Table

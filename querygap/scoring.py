@@ -97,9 +97,10 @@ def score_queries(
     n = len(queries)
     qt = query_terms(queries, index)
     weights = query_weights(qt.known, index.idf, qt.unknown, index.n_docs, index.settings.weighting)
-    pages_t = index.vectors.T.tocsr()
     compiled = None if chunk is None else False
-    top_r, top_c, top_v = top_k_scores(weights, pages_t, k, use_compiled=compiled, chunk=chunk)
+    top_r, top_c, top_v = top_k_scores(
+        weights, index.postings, k, use_compiled=compiled, chunk=chunk
+    )
     first = np.r_[True, top_r[1:] != top_r[:-1]] if top_r.size else np.empty(0, bool)
     best_doc_row = np.full(n, -1, dtype=np.int64)
     best_score = np.zeros(n)

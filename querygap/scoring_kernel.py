@@ -36,6 +36,8 @@ scipy products and a vectorised sort.
 
 from __future__ import annotations
 
+from dataclasses import dataclass
+
 import numpy as np
 import scipy.sparse as sp
 
@@ -326,7 +328,7 @@ def locality_order(weights: sp.csr_matrix) -> np.ndarray:
 
 def top_k_compiled(
     weights: sp.csr_matrix,
-    postings: sp.csr_matrix,
+    postings: sp.csr_matrix | Postings,
     k: int,
     chunk: int = QUERY_CHUNK,
     counts: dict[str, int] | None = None,
@@ -345,7 +347,12 @@ def top_k_compiled(
     out_val = np.zeros((n, k), np.float64)
     n_chunks = max(1, (n + chunk - 1) // chunk)
     stats = np.zeros((n_chunks, 3), np.int64)
-    slot, rows = dense_rows(postings)
+    if isinstance(postings, Postings):
+        max_w, slot, rows = postings.max_w, postings.dense_slot, postings.dense
+        postings = postings.matrix
+    else:
+        max_w = largest_weight(postings)
+        slot, rows = dense_rows(postings)
     _kernel(
         weights.indptr.astype(np.int64),
         weights.indices.astype(np.int32),
@@ -353,7 +360,7 @@ def top_k_compiled(
         postings.indptr.astype(np.int64),
         postings.indices.astype(np.int32),
         postings.data.astype(np.float64),
-        largest_weight(postings),
+        max_w,
         slot,
         rows,
         locality_order(weights),
@@ -397,9 +404,36 @@ def _products_stay_normal(weights: sp.csr_matrix, postings: sp.csr_matrix) -> bo
     return bool(weights.data.min() * postings.data.min() >= np.finfo(np.float64).tiny)
 
 
+@dataclass(frozen=True)
+class Postings:
+    """Page postings made ready for scoring once, then reused by every call on the same index.
+
+    ``matrix`` holds one row per term renumbered by ``order`` (:func:`term_order`), rows sorted;
+    ``max_w``, ``dense_slot`` and ``dense`` are its largest weights and dense rows
+    (:func:`dense_rows`).
+    """
+
+    order: np.ndarray
+    matrix: sp.csr_matrix
+    max_w: np.ndarray
+    dense_slot: np.ndarray
+    dense: np.ndarray
+
+
+def prepare_postings(postings: sp.csr_matrix) -> Postings:
+    """Renumber the terms rarest first and build the kernel's bounds and dense rows."""
+    postings = sp.csr_matrix(postings)
+    postings.eliminate_zeros()
+    order = term_order(postings)
+    matrix = postings[order]
+    matrix.sort_indices()
+    slot, rows = dense_rows(matrix)
+    return Postings(order, matrix, largest_weight(matrix), slot, rows)
+
+
 def top_k_scores(
     weights: sp.csr_matrix,
-    postings: sp.csr_matrix,
+    postings: sp.csr_matrix | Postings,
     k: int,
     use_compiled: bool | None = None,
     chunk: int | None = None,
@@ -410,17 +444,15 @@ def top_k_scores(
     Both paths first renumber the terms by :func:`term_order`, so each score is summed over the
     query's terms rarest first and the two paths agree bit for bit. ``use_compiled=None`` takes
     the compiled kernel when numba is installed; ``chunk`` is the number of queries per chunk
-    (default: each path's own); ``counts`` as in :func:`top_k_compiled`.
+    (default: each path's own); ``counts`` as in :func:`top_k_compiled`. ``postings`` may be
+    a :class:`Postings` made once by :func:`prepare_postings`, so repeated calls on one index
+    (the propose stage re-scores in rounds) do not renumber it each time.
     """
-    postings = sp.csr_matrix(postings)
-    postings.eliminate_zeros()
-    order = term_order(postings)
-    postings = postings[order]
-    postings.sort_indices()
-    weights = sp.csr_matrix(weights)[:, order]
+    ready = postings if isinstance(postings, Postings) else prepare_postings(postings)
+    weights = sp.csr_matrix(weights)[:, ready.order]
     weights.eliminate_zeros()
     weights.sort_indices()
     compiled = HAVE_NUMBA if use_compiled is None else use_compiled
-    if compiled and _products_stay_normal(weights, postings):
-        return top_k_compiled(weights, postings, k, chunk or QUERY_CHUNK, counts)
-    return top_k_numpy(weights, postings, k, chunk or 20_000)
+    if compiled and _products_stay_normal(weights, ready.matrix):
+        return top_k_compiled(weights, ready, k, chunk or QUERY_CHUNK, counts)
+    return top_k_numpy(weights, ready.matrix, k, chunk or 20_000)

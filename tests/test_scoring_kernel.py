@@ -153,3 +153,17 @@ def test_the_max_score_stop_skips_postings_and_stays_exact(k: int) -> None:
     b = top_k_scores(q, d.T.tocsr(), k, use_compiled=False)
     for x, y in zip((rows, docs, vals), b, strict=True):
         np.testing.assert_array_equal(x, y)
+
+
+@pytest.mark.parametrize("path", [pytest.param(True, marks=needs_numba), False])
+def test_prepared_postings_give_the_same_result_and_are_made_once(path: bool) -> None:
+    q, d = zipf_problem(5, n_q=100)
+    plain = top_k_scores(q, d.T.tocsr(), 5, use_compiled=path)
+    ready = scoring_kernel.prepare_postings(d.T.tocsr())
+    for x, y in zip(plain, top_k_scores(q, ready, 5, use_compiled=path), strict=True):
+        np.testing.assert_array_equal(x, y)
+    index = small_index()
+    assert index.postings is index.postings  # made on first use, then kept
+    first = score_queries(pd.Series(["water meter"]), index)
+    again = score_queries(pd.Series(["water meter"]), index)
+    pd.testing.assert_frame_equal(first.top_pages, again.top_pages)
