@@ -108,9 +108,9 @@ def spelling_candidates(terms: Sequence[str], vocab: pd.DataFrame, limit: int = 
 
 @cache
 def _stemmer():  # type: ignore[no-untyped-def]
-    import snowballstemmer
+    from querygap.analyzer import _stemmer as analyzer_stemmer
 
-    return snowballstemmer.stemmer("english")
+    return analyzer_stemmer()
 
 
 def stems(words: np.ndarray) -> np.ndarray:

@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+from pathlib import Path
+
 import pandas as pd
 import pyarrow as pa
 import pytest
@@ -40,6 +42,33 @@ def test_stop_words_and_stemming() -> None:
     )
     assert got == ["general", "run", "meter"]
     assert analyze("v2.3.1 readings", AnalyzerSettings(stem=True)) == ["v2.3.1", "read"]
+
+
+WORDNET_INDEX = Path("/usr/share/wordnet")
+
+
+@pytest.mark.skipif(
+    not (WORDNET_INDEX / "index.noun").exists(),
+    reason="WordNet 3.0 is missing: apt-get install -y wordnet-base (CI installs it)",
+)
+def test_compiled_stemmer_matches_the_reference_port() -> None:
+    # The stems come from PyStemmer (the Snowball project's C code); snowballstemmer's own
+    # pure-Python English stemmer is the reference. Words: every lemma of WordNet 3.0 (Debian
+    # package wordnet-base, index.noun/verb/adj/adv), 83,118 single words.
+    from snowballstemmer.english_stemmer import EnglishStemmer
+
+    words = sorted(
+        {
+            line.split(" ", 1)[0]
+            for part in ("noun", "verb", "adj", "adv")
+            for line in (WORDNET_INDEX / f"index.{part}").read_text().splitlines()
+            if line and not line.startswith(" ") and "_" not in line.split(" ", 1)[0]
+        }
+    )
+    assert len(words) > 80_000
+    stemmer = analyzer._stemmer()
+    assert type(stemmer).__module__ == "Stemmer"  # the compiled build is the one in use
+    assert stemmer.stemWords(words) == EnglishStemmer().stemWords(words)
 
 
 @settings(max_examples=100, deadline=None)
