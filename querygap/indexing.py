@@ -71,6 +71,14 @@ class Index:
         """The page vectors as the scorer's postings, made on first use and kept."""
         return prepare_postings(self.vectors.T.tocsr())
 
+    @cached_property
+    def term_keys(self) -> np.ndarray:
+        """``page row * n_terms + term column`` of every stored weight, ascending (CSR order):
+        whether page d has term t is one binary search for ``d * n_terms + t``."""
+        vec = self.vectors
+        doc_of_nnz = np.repeat(np.arange(vec.shape[0], dtype=np.int64), np.diff(vec.indptr))
+        return doc_of_nnz * vec.shape[1] + vec.indices.astype(np.int64)
+
 
 Pages = pd.DataFrame | pa.Table
 

@@ -5,7 +5,8 @@ analyzed terms hold ``term`` (both words, adjacent, for a two-word term). Its ``
 ``queries`` are the searches and the number of those queries; its ``rescued`` are the searches of
 the touched queries whose rewritten form (the term replaced in the analyzed query) is ok under
 the review's thresholds. Each distinct rewritten query is scored once, however many candidates
-produce it, so the cost grows with the distinct rewritten queries of the candidates asked for.
+produce it, so the cost grows with the distinct rewritten queries of the candidates asked for;
+only its status is computed (:func:`querygap.scoring.ok_queries`), not its top pages.
 """
 
 from __future__ import annotations
@@ -17,7 +18,7 @@ import pandas as pd
 
 from querygap.analyzer import analyze_series
 from querygap.indexing import Index
-from querygap.scoring import score_queries
+from querygap.scoring import ok_queries
 
 
 def status_of(scores: pd.DataFrame, min_score: float, min_coverage: float) -> pd.Series:
@@ -135,8 +136,7 @@ def rescued_searches(
     done = rewrite(sequences, candidates)
     unique, codes = np.unique(done["rewritten"].to_numpy(object), return_inverse=True)
     if len(unique):
-        scores = score_queries(pd.Series(unique, dtype=object), index).scores
-        ok = (status_of(scores, min_score, min_coverage) == "ok").to_numpy()[codes]
+        ok = ok_queries(pd.Series(unique, dtype=object), index, min_score, min_coverage)[codes]
     else:
         ok = np.zeros(0, bool)
     got = np.where(ok, np.asarray(searches)[done["row"].to_numpy()], 0)
@@ -208,8 +208,7 @@ def rescued_unless_beaten(
         part = pairs[wave]
         done = _rewritten(seq, cand, part)
         unique, codes = np.unique(done["rewritten"].to_numpy(object), return_inverse=True)
-        scores = score_queries(pd.Series(unique, dtype=object), index).scores
-        ok = (status_of(scores, min_score, min_coverage) == "ok").to_numpy()[codes]
+        ok = ok_queries(pd.Series(unique, dtype=object), index, min_score, min_coverage)[codes]
         done_pos = pd.Index(cand["cand"].to_numpy()).get_indexer(done["cand"].to_numpy())
         got = np.where(ok, np.asarray(searches)[done["row"].to_numpy()], 0)
         found += np.bincount(done_pos, weights=got, minlength=len(cand)).astype(np.int64)

@@ -76,6 +76,83 @@ def query_terms(queries: pd.Series, index: Index) -> QueryTerms:
 
 
 @dataclass(frozen=True)
+class Measured:
+    """Per query: its top pages (row-sorted triples) and the best page's share of its terms."""
+
+    top_r: np.ndarray  # query row of each kept page, ascending
+    top_c: np.ndarray  # page row
+    top_v: np.ndarray  # score, falling within a query
+    best_doc_row: np.ndarray  # (n,) page row of the best page, -1 when none
+    best_score: np.ndarray  # (n,)
+    in_best: np.ndarray  # per row of QueryTerms.long: the best page has the term
+    coverage: np.ndarray  # (n,)
+    n_terms: np.ndarray  # (n,) distinct terms
+    n_known: np.ndarray  # (n,) distinct terms some page has
+
+
+def measure_terms(
+    qt: QueryTerms, index: Index, k: int = TOP_K, floor: float = 0.0, chunk: int | None = None
+) -> Measured:
+    """Top ``k`` pages, best page and coverage of analyzed queries (see the module docstring).
+
+    With ``floor`` > 0 only pages scoring at least ``floor`` count: a query with none gets no
+    best page, best score 0 and the coverage of no page. ``chunk`` as in :func:`score_queries`.
+    """
+    n = qt.known.shape[0]
+    weights = query_weights(qt.known, index.idf, qt.unknown, index.n_docs, index.settings.weighting)
+    compiled = None if chunk is None else False
+    top_r, top_c, top_v = top_k_scores(
+        weights, index.postings, k, use_compiled=compiled, chunk=chunk, floor=floor
+    )
+    first = np.r_[True, top_r[1:] != top_r[:-1]] if top_r.size else np.empty(0, bool)
+    best_doc_row = np.full(n, -1, dtype=np.int64)
+    best_score = np.zeros(n)
+    best_doc_row[top_r[first]] = top_c[first]
+    best_score[top_r[first]] = top_v[first]
+
+    long = qt.long
+    term_ids = long["term_id"].to_numpy(np.int64)
+    qrow = long["row"].to_numpy(np.int64)
+    in_best = np.zeros(len(long), dtype=bool)
+    has_best = (term_ids >= 0) & (best_doc_row[qrow] >= 0)
+    if has_best.any():
+        keys = index.term_keys
+        probe = best_doc_row[qrow[has_best]] * len(index.terms) + term_ids[has_best]
+        pos = np.minimum(np.searchsorted(keys, probe), keys.size - 1)
+        in_best[has_best] = keys[pos] == probe
+    unk_idf = unknown_term_idf(index.n_docs, index.settings.weighting)
+    idf = np.where(term_ids >= 0, index.idf[np.maximum(term_ids, 0)], unk_idf)
+    mass = np.bincount(qrow, weights=idf, minlength=n)
+    matched = np.bincount(qrow, weights=np.where(in_best, idf, 0.0), minlength=n)
+    n_terms = np.bincount(qrow, minlength=n)
+    n_known = np.bincount(qrow, weights=(term_ids >= 0).astype(float), minlength=n).astype(np.int64)
+    n_in_best = np.bincount(qrow, weights=in_best.astype(float), minlength=n)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        coverage = np.where(
+            mass > 0, matched / mass, np.where((n_terms > 0) & (n_in_best == n_terms), 1.0, 0.0)
+        )
+    return Measured(
+        top_r, top_c, top_v, best_doc_row, best_score, in_best, coverage, n_terms, n_known
+    )
+
+
+def ok_queries(
+    queries: pd.Series, index: Index, min_score: float, min_coverage: float
+) -> np.ndarray:
+    """True for each query the flag stage would call ok (sql/review.sql review_flag): some
+    known term, best score >= ``min_score`` and coverage >= ``min_coverage``.
+
+    Scores only what that needs: the best page (k = 1) among pages reaching ``min_score``, a
+    floor that lets the kernel stop reading most postings (:func:`top_k_scores`).
+    """
+    qt = query_terms(pd.Series(queries, dtype=object).reset_index(drop=True), index)
+    got = measure_terms(qt, index, k=1, floor=max(min_score, 0.0))
+    best = np.clip(got.best_score, 0.0, 1.0)
+    coverage = np.clip(got.coverage, 0.0, 1.0)
+    return (got.n_known > 0) & (best >= min_score) & (coverage >= min_coverage)
+
+
+@dataclass(frozen=True)
 class ScoreTables:
     """The three result tables, ready to store."""
 
@@ -94,44 +171,15 @@ def score_queries(
     that size. Both give the same scores and pages.
     """
     queries = pd.Series(queries, dtype=object).reset_index(drop=True)
-    n = len(queries)
     qt = query_terms(queries, index)
-    weights = query_weights(qt.known, index.idf, qt.unknown, index.n_docs, index.settings.weighting)
-    compiled = None if chunk is None else False
-    top_r, top_c, top_v = top_k_scores(
-        weights, index.postings, k, use_compiled=compiled, chunk=chunk
-    )
-    first = np.r_[True, top_r[1:] != top_r[:-1]] if top_r.size else np.empty(0, bool)
-    best_doc_row = np.full(n, -1, dtype=np.int64)
-    best_score = np.zeros(n)
-    best_doc_row[top_r[first]] = top_c[first]
-    best_score[top_r[first]] = top_v[first]
+    got = measure_terms(qt, index, k, chunk=chunk)
+    top_r, top_c, top_v = got.top_r, got.top_c, got.top_v
+    best_doc_row, best_score, coverage = got.best_doc_row, got.best_score, got.coverage
+    in_best, n_terms, n_known = got.in_best, got.n_terms, got.n_known
     rank = np.arange(top_r.size) - np.searchsorted(top_r, top_r, side="left")
-
     long = qt.long
     term_ids = long["term_id"].to_numpy(np.int64)
     qrow = long["row"].to_numpy(np.int64)
-    in_best = np.zeros(len(long), dtype=bool)
-    has_best = (term_ids >= 0) & (best_doc_row[qrow] >= 0)
-    if has_best.any():
-        vec = index.vectors
-        doc_of_nnz = np.repeat(np.arange(vec.shape[0], dtype=np.int64), np.diff(vec.indptr))
-        keys = doc_of_nnz * vec.shape[1] + vec.indices.astype(np.int64)  # sorted (CSR order)
-        probe = best_doc_row[qrow[has_best]] * vec.shape[1] + term_ids[has_best]
-        pos = np.searchsorted(keys, probe)
-        pos = np.minimum(pos, keys.size - 1)
-        in_best[has_best] = keys[pos] == probe
-    unk_idf = unknown_term_idf(index.n_docs, index.settings.weighting)
-    idf = np.where(term_ids >= 0, index.idf[np.maximum(term_ids, 0)], unk_idf)
-    mass = np.bincount(qrow, weights=idf, minlength=n)
-    matched = np.bincount(qrow, weights=np.where(in_best, idf, 0.0), minlength=n)
-    n_terms = np.bincount(qrow, minlength=n)
-    n_known = np.bincount(qrow, weights=(term_ids >= 0).astype(float), minlength=n).astype(np.int64)
-    n_in_best = np.bincount(qrow, weights=in_best.astype(float), minlength=n)
-    with np.errstate(invalid="ignore", divide="ignore"):
-        coverage = np.where(
-            mass > 0, matched / mass, np.where((n_terms > 0) & (n_in_best == n_terms), 1.0, 0.0)
-        )
 
     doc_ids = index.doc_ids
     scores = pd.DataFrame(

@@ -72,7 +72,11 @@ def top_k_rows(scores: sp.csr_matrix, k: int) -> tuple[np.ndarray, np.ndarray, n
 
 
 def top_k_numpy(
-    weights: sp.csr_matrix, postings: sp.csr_matrix, k: int, chunk: int = 20_000
+    weights: sp.csr_matrix,
+    postings: sp.csr_matrix,
+    k: int,
+    chunk: int = 20_000,
+    floor: float = 0.0,
 ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """Pure numpy/scipy path: chunked product ``weights @ postings`` then :func:`top_k_rows`.
 
@@ -84,11 +88,16 @@ def top_k_numpy(
         Page weights, one row of postings per term.
     k : int
         Pages kept per query.
+    floor : float
+        Pages scoring under it are not kept.
     """
     n = weights.shape[0]
     rows_out, cols_out, vals_out = [], [], []
     for start in range(0, n, chunk):
-        r, c, v = top_k_rows(weights[start : start + chunk] @ postings, k)
+        product = weights[start : start + chunk] @ postings
+        if floor > 0:
+            product.data[product.data < floor] = 0.0
+        r, c, v = top_k_rows(product, k)
         rows_out.append(r + start)
         cols_out.append(c)
         vals_out.append(v)
@@ -136,13 +145,15 @@ def _kernel_py(
     chunk_order: np.ndarray,
     n_docs: int,
     k: int,
+    floor: float,
     chunk: int,
     max_terms: int,
     out_doc: np.ndarray,
     out_val: np.ndarray,
     stats: np.ndarray,
 ) -> None:
-    """Fill ``out_doc``/``out_val`` (n_queries, k) with each query's top pages (-1/0 when fewer).
+    """Fill ``out_doc``/``out_val`` (n_queries, k) with each query's top pages (-1/0 when fewer)
+    among those scoring ``floor`` or more.
 
     Queries are taken in the sequence ``order``, chunk ``chunk_order[i]`` as the i-th parallel
     task; ``dense[dense_slot[t]]`` is term t's weights
@@ -170,6 +181,8 @@ def _kernel_py(
             for jj in range(n_t - 1, -1, -1):  # rest[jj]: the most the terms after jj can add
                 rest[jj] = total
                 total += q_val[a + jj] * max_w[q_idx[a + jj]]
+            if total * SAFETY < floor:  # no page can reach the floor
+                continue
             n_touched = 0
             pruned = False  # True once no page not touched yet can reach the top k
             reached = 0.0  # the most any page can have so far
@@ -187,12 +200,12 @@ def _kernel_py(
                         acc[d] += wq * p_val[p]
                     scanned += hi - lo
                     reached += wq * max_w[t]
-                    if jj == n_t - 1 or n_touched < k:
+                    if jj == n_t - 1:
                         continue
                     bound = rest[jj] * SAFETY
-                    if bound >= reached:  # the k-th best cannot exceed the bound yet
-                        continue
-                    theta = _kth_largest(acc, touched, n_touched, k, top_v)
+                    theta = floor
+                    if n_touched >= k and bound < reached:  # else the k-th best <= the bound
+                        theta = max(theta, _kth_largest(acc, touched, n_touched, k, top_v))
                     if not bound < theta:
                         continue
                     # Max-score: a page not touched yet ends below theta, the k-th best so far.
@@ -255,7 +268,7 @@ def _kernel_py(
                 d = touched[i]
                 v = acc[d]
                 acc[d] = 0.0
-                if v <= 0.0:
+                if v <= 0.0 or v < floor:
                     continue
                 if n_top == k and (v < top_v[k - 1] or (v == top_v[k - 1] and d > top_d[k - 1])):
                     continue
@@ -332,6 +345,7 @@ def top_k_compiled(
     k: int,
     chunk: int = QUERY_CHUNK,
     counts: dict[str, int] | None = None,
+    floor: float = 0.0,
 ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """The compiled term-at-a-time path; same arguments and result as :func:`top_k_numpy`.
 
@@ -369,6 +383,7 @@ def top_k_compiled(
         np.random.default_rng(0).permutation(n_chunks).astype(np.int64),
         postings.shape[1],
         k,
+        float(floor),
         chunk,
         int(np.diff(weights.indptr).max(initial=0)) + 1,
         out_doc,
@@ -438,8 +453,14 @@ def top_k_scores(
     use_compiled: bool | None = None,
     chunk: int | None = None,
     counts: dict[str, int] | None = None,
+    floor: float = 0.0,
 ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """Each query's ``k`` best pages: (row, page row, score), rows ascending, scores falling.
+
+    Only pages scoring ``floor`` or more are kept (a query may keep none). A floor is a
+    max-score bound from the start: a query's terms stop reading new pages as soon as the most
+    its later terms can add is under it, so asking only for pages that can pass a threshold is
+    much cheaper than the whole top k.
 
     Both paths first renumber the terms by :func:`term_order`, so each score is summed over the
     query's terms rarest first and the two paths agree bit for bit. ``use_compiled=None`` takes
@@ -454,5 +475,5 @@ def top_k_scores(
     weights.sort_indices()
     compiled = HAVE_NUMBA if use_compiled is None else use_compiled
     if compiled and _products_stay_normal(weights, ready.matrix):
-        return top_k_compiled(weights, ready, k, chunk or QUERY_CHUNK, counts)
-    return top_k_numpy(weights, ready.matrix, k, chunk or 20_000)
+        return top_k_compiled(weights, ready, k, chunk or QUERY_CHUNK, counts, floor)
+    return top_k_numpy(weights, ready.matrix, k, chunk or 20_000, floor)

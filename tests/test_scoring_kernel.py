@@ -167,3 +167,55 @@ def test_prepared_postings_give_the_same_result_and_are_made_once(path: bool) ->
     first = score_queries(pd.Series(["water meter"]), index)
     again = score_queries(pd.Series(["water meter"]), index)
     pd.testing.assert_frame_equal(first.top_pages, again.top_pages)
+
+
+@pytest.mark.parametrize("path", [pytest.param(True, marks=needs_numba), False])
+@pytest.mark.parametrize(("k", "floor"), [(1, 0.3), (1, 0.45), (5, 0.3), (3, 0.37)])
+def test_a_floor_keeps_only_pages_that_reach_it_and_reads_less(
+    path: bool, k: int, floor: float
+) -> None:
+    q, d = zipf_problem(13)
+    counts: dict[str, int] = {}
+    rows, docs, vals = top_k_scores(
+        q, d.T.tocsr(), k, use_compiled=path, floor=floor, counts=counts if path else None
+    )
+    # Reference: scikit-learn's cosine_similarity, dense; the top k among cosines >= floor.
+    dense = cosine_similarity(q, d)
+    kept_queries = 0
+    for row in range(q.shape[0]):
+        order = np.argsort(-dense[row], kind="stable")[:k]
+        want = [c for c in order if dense[row, c] >= floor and dense[row, c] > 0]
+        got = docs[rows == row]
+        assert len(got) == len(want)
+        np.testing.assert_allclose(vals[rows == row], dense[row, want], rtol=0, atol=1e-12)
+        assert set(got) == set(want) or np.allclose(dense[row, got], dense[row, want], atol=1e-12)
+        kept_queries += bool(want)
+    assert 0 < kept_queries < q.shape[0]  # the floor matters for this problem
+    if path:
+        plain: dict[str, int] = {}
+        top_k_scores(q, d.T.tocsr(), k, use_compiled=True, counts=plain)
+        assert counts["scanned"] < plain["scanned"]
+        b = top_k_scores(q, d.T.tocsr(), k, use_compiled=False, floor=floor)
+        for x, y in zip((rows, docs, vals), b, strict=True):
+            np.testing.assert_array_equal(x, y)
+
+
+@pytest.mark.parametrize(
+    ("min_score", "min_coverage"), [(0.05, 0.6), (0.3, 0.6), (0.5, 0.9), (0.0, 0.0)]
+)
+def test_ok_queries_agree_with_the_full_scores(min_score: float, min_coverage: float) -> None:
+    # The status-only path (best page among those reaching min_score) must call ok exactly the
+    # queries the full top-k scores and the flag rule call ok.
+    from querygap.rescoring import status_of
+    from querygap.scoring import ok_queries
+
+    index = small_index()
+    rng = np.random.default_rng(3)
+    words = np.array([*index.terms, "sofa", "zebra", "quux"], dtype=object)
+    queries = pd.Series(
+        [" ".join(rng.choice(words, size=rng.integers(1, 5))) for _ in range(3000)] + [""]
+    ).drop_duplicates()
+    full = status_of(score_queries(queries, index).scores, min_score, min_coverage) == "ok"
+    got = ok_queries(queries, index, min_score, min_coverage)
+    assert 0 < full.sum() < len(queries) or min_score == 0.0
+    np.testing.assert_array_equal(got, full.to_numpy())
