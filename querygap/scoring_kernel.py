@@ -25,7 +25,14 @@ can enter the top k: the later terms only update the touched pages that can stil
 merge pass in the term's sorted postings. Every bound carries a relative slack of 1e-9, far above
 the rounding of the sums, so the result is exactly the exhaustive one; tests check it against
 scikit-learn's cosine and against the numpy path. The long postings of common terms come last
-in each query, so they are the ones skipped: at size M about 54% of the postings touched.
+in each query, so they are the ones skipped. The stop is tried only where the later terms'
+postings outnumber the pages touched so far ``STOP_WORTH`` times: elsewhere the look-ups cost
+more than the sequential reads they save. At size M it skips 27% of the postings touched and
+the kernel runs in 0.7 of the time of trying everywhere (which skipped 54%).
+
+A floor (pages scoring under it are not wanted) is a bound from the first term on: theta is at
+least the floor, so a query whose terms cannot reach it reads nothing, and one whose later terms
+cannot lift a page to it stops there.
 
 Queries run in an order that puts those sharing their commonest terms next to each other, so
 the long postings are read from cache. With numba installed the kernel is compiled (cached on
@@ -110,7 +117,13 @@ def top_k_numpy(
     )
 
 
-SAFETY = 1.0 + 1e-9  # slack on every bound: float sums of <= 10^6 terms err by far less
+SAFETY = 1.0 + 1e-9
+# The stop is tried only when the later terms have at least this many postings per page touched
+# so far: trying costs a pass over the touched pages, and each page kept then costs a random
+# look-up per later term, against a sequential read per posting skipped. Measured at size M
+# (1.1M queries, 2 threads, paired runs): always trying 0.87-0.94 of the time without this
+# gate, 3: 0.63-0.68, 4: 0.69-0.70, 8: 0.69-0.75, 16: 0.68-0.70, never trying: 0.80-0.85.
+STOP_WORTH = 4  # slack on every bound: float sums of <= 10^6 terms err by far less
 
 
 def _kth_largest(acc: np.ndarray, touched: np.ndarray, n: int, k: int, buf: np.ndarray) -> float:
@@ -169,6 +182,7 @@ def _kernel_py(
         top_d = np.empty(k, np.int64)
         top_v = np.empty(k, np.float64)
         rest = np.empty(max_terms, np.float64)
+        later = np.empty(max_terms, np.int64)
         scanned = 0
         looked_up = 0
         stopped = 0
@@ -178,9 +192,12 @@ def _kernel_py(
             a = q_ptr[q]
             n_t = q_ptr[q + 1] - a
             total = 0.0
+            later_len = 0
             for jj in range(n_t - 1, -1, -1):  # rest[jj]: the most the terms after jj can add
-                rest[jj] = total
+                rest[jj] = total  # later[jj]: their postings
+                later[jj] = later_len
                 total += q_val[a + jj] * max_w[q_idx[a + jj]]
+                later_len += p_ptr[q_idx[a + jj] + 1] - p_ptr[q_idx[a + jj]]
             if total * SAFETY < floor:  # no page can reach the floor
                 continue
             n_touched = 0
@@ -194,14 +211,14 @@ def _kernel_py(
                 if not pruned:
                     for p in range(lo, hi):  # acc > 0 marks a touched page (weights are > 0)
                         d = p_idx[p]
-                        if acc[d] == 0.0:
-                            touched[n_touched] = d
-                            n_touched += 1
-                        acc[d] += wq * p_val[p]
+                        v = acc[d]
+                        touched[n_touched] = d  # branch-free append: kept only when new
+                        n_touched += v == 0.0
+                        acc[d] = v + wq * p_val[p]
                     scanned += hi - lo
                     reached += wq * max_w[t]
-                    if jj == n_t - 1:
-                        continue
+                    if jj == n_t - 1 or later[jj] < STOP_WORTH * n_touched:
+                        continue  # reading the rest costs less than trying to stop
                     bound = rest[jj] * SAFETY
                     theta = floor
                     if n_touched >= k and bound < reached:  # else the k-th best <= the bound
