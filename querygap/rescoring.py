@@ -38,6 +38,8 @@ def sequences_of(queries: pd.Series, index: Index) -> pd.DataFrame:
 def _prepared(
     sequences: pd.DataFrame, candidates: pd.DataFrame
 ) -> tuple[pd.DataFrame, pd.DataFrame]:
+    """The sequences and candidates with their words as integer codes of one shared
+    vocabulary (``""``, the empty word, included), so the joins below compare integers."""
     seq = sequences[["row", "pos", "term"]].reset_index(drop=True)
     seq["term"] = seq["term"].astype(object)  # an empty frame may come back float-typed
     seq["next"] = seq["term"].shift(-1).where(seq["row"].eq(seq["row"].shift(-1)), "")
@@ -46,12 +48,26 @@ def _prepared(
     parts = cand["term"].str.split(" ", n=1, expand=True).reindex(columns=[0, 1])
     cand["first"] = parts[0].astype(object)
     cand["second"] = parts[1].astype(object).fillna("")
+    words = pd.Index(
+        pd.unique(
+            np.concatenate(
+                [[""], seq["term"].to_numpy(object), cand["first"].to_numpy(object)]
+            ).astype(object)
+        )
+    )
+    seq["term_code"] = words.get_indexer(seq["term"].to_numpy(object))
+    seq["next_code"] = words.get_indexer(seq["next"].to_numpy(object))
+    cand["first_code"] = words.get_indexer(cand["first"].to_numpy(object))
+    cand["second_code"] = words.get_indexer(cand["second"].to_numpy(object))  # -1: unseen
     return seq, cand
 
 
 def _pairs(seq: pd.DataFrame, cand: pd.DataFrame) -> pd.DataFrame:
-    hits = seq.merge(cand, left_on="term", right_on="first", suffixes=("", "_c"))
-    hits = hits[(hits["second"] == "") | (hits["second"] == hits["next"])]
+    hits = seq[["row", "term_code", "next_code"]].merge(
+        cand[["cand", "first_code", "second_code"]], left_on="term_code", right_on="first_code"
+    )
+    second = hits["second_code"].to_numpy()
+    hits = hits[(second == 0) | (second == hits["next_code"].to_numpy())]
     return hits[["cand", "row"]].drop_duplicates()
 
 
@@ -82,19 +98,16 @@ def _rewritten(seq: pd.DataFrame, cand: pd.DataFrame, pairs: pd.DataFrame) -> pd
     """The rewritten query of each (cand, row) pair of ``pairs`` (see :func:`rewrite`)."""
     full = (
         pairs[["cand", "row"]]
-        .merge(seq, on="row")
-        .merge(cand[["cand", "first", "second", "suggestion"]], on="cand")
+        .merge(seq[["row", "pos", "term", "term_code", "next_code"]], on="row")
+        .merge(cand[["cand", "first_code", "second_code", "suggestion"]], on="cand")
     )
     full = full.sort_values(["cand", "row", "pos"], kind="mergesort")
-    prev = (
-        full["term"]
-        .shift(1)
-        .where(full["row"].eq(full["row"].shift(1)) & full["cand"].eq(full["cand"].shift(1)), "")
-    )
-    is_first = (full["term"] == full["first"]) & (
-        (full["second"] == "") | (full["next"] == full["second"])
-    )
-    is_second = (full["second"] != "") & (full["term"] == full["second"]) & (prev == full["first"])
+    term, first, second = (full[c].to_numpy() for c in ("term_code", "first_code", "second_code"))
+    same = np.r_[False, (full["row"].to_numpy()[1:] == full["row"].to_numpy()[:-1])]
+    same &= np.r_[False, full["cand"].to_numpy()[1:] == full["cand"].to_numpy()[:-1]]
+    prev = np.where(same, np.r_[0, term[:-1]], 0)  # 0: the empty word
+    is_first = (term == first) & ((second == 0) | (full["next_code"].to_numpy() == second))
+    is_second = (second != 0) & (term == second) & (prev == first)
     full["out"] = np.where(is_first, full["suggestion"], np.where(is_second, "", full["term"]))
     full = full[full["out"] != ""]
     # The rows are sorted by (cand, row, pos): join each group's terms with one C-level
