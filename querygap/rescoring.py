@@ -29,36 +29,42 @@ def status_of(scores: pd.DataFrame, min_score: float, min_coverage: float) -> pd
 
 
 def sequences_of(queries: pd.Series, index: Index) -> pd.DataFrame:
-    """The analyzed queries as ``row``, ``pos`` and ``term``, terms in query order."""
+    """The analyzed queries as ``row``, ``pos`` and ``term``, terms in query order (with the
+    word codes the joins below use, made once here rather than at every call)."""
     occ = analyze_series(queries.reset_index(drop=True), index.settings.analyzer)
     occ["pos"] = occ.groupby("row").cumcount()
-    return occ
+    return _with_codes(occ)
+
+
+def _with_codes(sequences: pd.DataFrame) -> pd.DataFrame:
+    """``sequences`` with ``next`` (the following term of the same query, ``""`` at the end),
+    and ``term_code``/``next_code``: positions in ``attrs["words"]``, the distinct terms after
+    ``""`` (code 0, the empty word)."""
+    seq = sequences[["row", "pos", "term"]].reset_index(drop=True)
+    seq["term"] = seq["term"].astype(object)  # an empty frame may come back float-typed
+    seq["next"] = seq["term"].shift(-1).where(seq["row"].eq(seq["row"].shift(-1)), "")
+    words = pd.Index(pd.unique(np.concatenate([[""], seq["term"].to_numpy(object)]).astype(object)))
+    seq["term_code"] = words.get_indexer(seq["term"].to_numpy(object))
+    seq["next_code"] = words.get_indexer(seq["next"].to_numpy(object))
+    seq.attrs["words"] = words
+    return seq
 
 
 def _prepared(
     sequences: pd.DataFrame, candidates: pd.DataFrame
 ) -> tuple[pd.DataFrame, pd.DataFrame]:
-    """The sequences and candidates with their words as integer codes of one shared
-    vocabulary (``""``, the empty word, included), so the joins below compare integers."""
-    seq = sequences[["row", "pos", "term"]].reset_index(drop=True)
-    seq["term"] = seq["term"].astype(object)  # an empty frame may come back float-typed
-    seq["next"] = seq["term"].shift(-1).where(seq["row"].eq(seq["row"].shift(-1)), "")
+    """The sequences and candidates with their words as integer codes of one vocabulary, so
+    the joins below compare integers; a candidate word no query has gets -1 (matches none)."""
+    ready = "term_code" in sequences.columns and "words" in sequences.attrs
+    seq = sequences if ready else _with_codes(sequences)
+    words = seq.attrs["words"]
     cand = candidates[["cand", "term", "suggestion"]].copy()
     cand["term"] = cand["term"].astype(object)
     parts = cand["term"].str.split(" ", n=1, expand=True).reindex(columns=[0, 1])
     cand["first"] = parts[0].astype(object)
     cand["second"] = parts[1].astype(object).fillna("")
-    words = pd.Index(
-        pd.unique(
-            np.concatenate(
-                [[""], seq["term"].to_numpy(object), cand["first"].to_numpy(object)]
-            ).astype(object)
-        )
-    )
-    seq["term_code"] = words.get_indexer(seq["term"].to_numpy(object))
-    seq["next_code"] = words.get_indexer(seq["next"].to_numpy(object))
     cand["first_code"] = words.get_indexer(cand["first"].to_numpy(object))
-    cand["second_code"] = words.get_indexer(cand["second"].to_numpy(object))  # -1: unseen
+    cand["second_code"] = words.get_indexer(cand["second"].to_numpy(object))
     return seq, cand
 
 
