@@ -92,6 +92,21 @@ CLUSTERS_IN_RESULT = 20
 Progress = Callable[[str], None]
 
 
+def score_stage(conn: duckdb.DuckDBPyConnection, params: dict[str, object]) -> int:
+    """Score and store the window's queries not yet scored against the index; their number.
+
+    A function of its own so the index and the score tables (about 1 GB at a million queries)
+    are freed before the later stages run, not kept alive to the end of the review.
+    """
+    todo = frame(conn, "review_unscored_queries", params)["query"]
+    if len(todo):
+        index = load_index(conn)
+        tables = score_queries(todo, index)
+        with transaction(conn):
+            store_scores(conn, str(params["index_id"]), tables)
+    return len(todo)
+
+
 def run_review(
     conn: duckdb.DuckDBPyConnection,
     window: Window,
@@ -116,12 +131,7 @@ def run_review(
     t0 = time.perf_counter()
     say("score")
     params = {"start": window.start, "end": window.end, "index_id": index_id}
-    todo = frame(conn, "review_unscored_queries", params)["query"]
-    if len(todo):
-        index = load_index(conn)
-        tables = score_queries(todo, index)
-        with transaction(conn):
-            store_scores(conn, index_id, tables)
+    scored_now = score_stage(conn, params)
     timings["score"] = time.perf_counter() - t0
 
     t0 = time.perf_counter()
@@ -157,7 +167,7 @@ def run_review(
     with transaction(conn):
         run_clusters(conn, window, index_id, clusters)
     timings["cluster"] = time.perf_counter() - t0
-    result = summarize(conn, window, index_id, reused, len(todo))
+    result = summarize(conn, window, index_id, reused, scored_now)
     result.timings = timings
     t0 = time.perf_counter()
     say("propose")
