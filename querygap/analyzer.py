@@ -90,7 +90,8 @@ def _stop_words() -> frozenset[str]:
 
 
 @cache
-def _stemmer():  # type: ignore[no-untyped-def]
+def english_stemmer():  # type: ignore[no-untyped-def]
+    """Snowball English, shared by the analyzer and the variant proposals (PyStemmer's C build)."""
     import snowballstemmer
 
     return snowballstemmer.stemmer("english")
@@ -100,7 +101,7 @@ def _finish(tokens: Iterable[str], settings: AnalyzerSettings) -> dict[str, list
     """Map each distinct raw token to its final terms (steps 4-6)."""
     mapping: dict[str, list[str]] = {}
     stops = _stop_words() if settings.stop_words else frozenset()
-    stemmer = _stemmer() if settings.stem else None
+    stemmer = english_stemmer() if settings.stem else None
     for raw in tokens:
         terms = [t for t in _canonical(raw) if t not in stops]
         if stemmer is not None:

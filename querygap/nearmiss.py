@@ -13,13 +13,13 @@ words (common practice, no source).
 from __future__ import annotations
 
 from collections.abc import Sequence
-from functools import cache
 
 import numpy as np
 import pandas as pd
 from rapidfuzz import process
 from rapidfuzz.distance import OSA, Indel
 
+from querygap.analyzer import english_stemmer
 from querygap.edit_neighbours import candidate_pairs
 from querygap.stats import signed_llr
 
@@ -106,16 +106,9 @@ def spelling_candidates(terms: Sequence[str], vocab: pd.DataFrame, limit: int = 
     return found[found["rank"] <= limit].reset_index(drop=True)[columns]
 
 
-@cache
-def _stemmer():  # type: ignore[no-untyped-def]
-    from querygap.analyzer import _stemmer as analyzer_stemmer
-
-    return analyzer_stemmer()
-
-
 def stems(words: np.ndarray) -> np.ndarray:
     """Snowball English (Porter2) stems of many words in one call."""
-    return np.asarray(_stemmer().stemWords(list(words)), dtype=object)
+    return np.asarray(english_stemmer().stemWords(list(words)), dtype=object)
 
 
 def variant_candidates(terms: Sequence[str], vocab: pd.DataFrame) -> pd.DataFrame:

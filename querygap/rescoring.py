@@ -18,14 +18,20 @@ import pandas as pd
 
 from querygap.analyzer import analyze_series
 from querygap.indexing import Index
-from querygap.scoring import ok_queries
+from querygap.scoring import is_ok, ok_queries
 
 
 def status_of(scores: pd.DataFrame, min_score: float, min_coverage: float) -> pd.Series:
     """The flag stage's rule (sql/review.sql review_flag) applied to re-scored queries."""
-    zero = scores["n_known"] == 0
-    low = (scores["best_score"] < min_score) | (scores["coverage"] < min_coverage)
-    return pd.Series(np.where(zero, "zero", np.where(low, "low", "ok")), index=scores.index)
+    zero = scores["n_known"].to_numpy() == 0
+    ok = is_ok(
+        scores["n_known"].to_numpy(),
+        scores["best_score"].to_numpy(),
+        scores["coverage"].to_numpy(),
+        min_score,
+        min_coverage,
+    )
+    return pd.Series(np.where(zero, "zero", np.where(ok, "ok", "low")), index=scores.index)
 
 
 def sequences_of(queries: pd.Series, index: Index) -> pd.DataFrame:

@@ -136,6 +136,20 @@ def measure_terms(
     )
 
 
+def is_ok(
+    n_known: np.ndarray,
+    best_score: np.ndarray,
+    coverage: np.ndarray,
+    min_score: float,
+    min_coverage: float,
+) -> np.ndarray:
+    """The flag stage's rule for ok (sql/review.sql review_flag): some term a page has, best
+    score >= ``min_score`` and coverage >= ``min_coverage`` (scores clipped to [0, 1])."""
+    best = np.clip(np.asarray(best_score, float), 0.0, 1.0)
+    cover = np.clip(np.asarray(coverage, float), 0.0, 1.0)
+    return (np.asarray(n_known) > 0) & (best >= min_score) & (cover >= min_coverage)
+
+
 def ok_queries(
     queries: pd.Series, index: Index, min_score: float, min_coverage: float
 ) -> np.ndarray:
@@ -147,9 +161,7 @@ def ok_queries(
     """
     qt = query_terms(pd.Series(queries, dtype=object).reset_index(drop=True), index)
     got = measure_terms(qt, index, k=1, floor=max(min_score, 0.0))
-    best = np.clip(got.best_score, 0.0, 1.0)
-    coverage = np.clip(got.coverage, 0.0, 1.0)
-    return (got.n_known > 0) & (best >= min_score) & (coverage >= min_coverage)
+    return is_ok(got.n_known, got.best_score, got.coverage, min_score, min_coverage)
 
 
 @dataclass(frozen=True)

@@ -66,7 +66,7 @@ def test_compiled_stemmer_matches_the_reference_port() -> None:
         }
     )
     assert len(words) > 80_000
-    stemmer = analyzer._stemmer()
+    stemmer = analyzer.english_stemmer()
     assert type(stemmer).__module__ == "Stemmer"  # the compiled build is the one in use
     assert stemmer.stemWords(words) == EnglishStemmer().stemWords(words)
 
