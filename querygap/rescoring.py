@@ -6,7 +6,13 @@ analyzed terms hold ``term`` (both words, adjacent, for a two-word term). Its ``
 the touched queries whose rewritten form (the term replaced in the analyzed query) is ok under
 the review's thresholds. Each distinct rewritten query is scored once, however many candidates
 produce it, so the cost grows with the distinct rewritten queries of the candidates asked for;
-only its status is computed (:func:`querygap.scoring.ok_queries`), not its top pages.
+only its status is computed (:func:`querygap.scoring.ok_terms`), not its top pages.
+
+The rewritten queries are never written out and analyzed again: they are built as word codes
+(the query's terms, the replaced ones swapped for the suggestion's words, which are terms
+already), counted per query and scored from the counts. For the analyzer's default settings this
+is the same as analyzing the rewritten text (:func:`rewrite`; a test compares the two), and
+with stemming it does not stem the stems a second time.
 """
 
 from __future__ import annotations
@@ -18,7 +24,7 @@ import pandas as pd
 
 from querygap.analyzer import analyze_series
 from querygap.indexing import Index
-from querygap.scoring import is_ok, ok_queries
+from querygap.scoring import is_ok, ok_terms, terms_of_counts
 
 
 def status_of(scores: pd.DataFrame, min_score: float, min_coverage: float) -> pd.Series:
@@ -158,15 +164,153 @@ def rescued_searches(
 ) -> pd.Series:
     """Searches each candidate rescues, indexed by ``cand``: the searches of its rewritten
     queries that score ok; every distinct rewritten query is scored once."""
-    done = rewrite(sequences, candidates)
-    unique, codes = np.unique(done["rewritten"].to_numpy(object), return_inverse=True)
-    if len(unique):
-        ok = ok_queries(pd.Series(unique, dtype=object), index, min_score, min_coverage)[codes]
-    else:
-        ok = np.zeros(0, bool)
-    got = np.where(ok, np.asarray(searches)[done["row"].to_numpy()], 0)
-    rescued = pd.Series(got, dtype=np.int64).groupby(done["cand"].to_numpy()).sum()
+    seq, cand = _prepared(sequences, candidates)
+    pairs = _pairs(seq, cand)
+    ok = ok_rewrites(seq, cand, pairs, index, min_score, min_coverage)
+    got = np.where(ok, np.asarray(searches)[pairs["row"].to_numpy()], 0)
+    rescued = pd.Series(got, dtype=np.int64).groupby(pairs["cand"].to_numpy()).sum()
     return rescued.reindex(candidates["cand"].to_numpy(), fill_value=0).astype(np.int64)
+
+
+def _ranks(sizes: np.ndarray) -> np.ndarray:
+    """0, 1, ..., size - 1 for each size, concatenated."""
+    return np.arange(int(sizes.sum())) - np.repeat(np.cumsum(sizes) - sizes, sizes)
+
+
+def _suggestion_codes(
+    cand: pd.DataFrame, seq: pd.DataFrame, index: Index
+) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Each candidate's suggestion as word codes: (start of each candidate's words, with one
+    more at the end; the codes; the index column of every code, -1 for a word no page has).
+
+    Codes below ``len(seq.attrs["words"])`` are the queries' words; a suggestion word no query
+    has gets a code after them. The words' index columns are looked up once per sequences
+    and index (kept in ``seq.attrs``), not at every round.
+    """
+    words = seq.attrs["words"]
+    known = seq.attrs.setdefault("term_of", {})
+    if index.index_id not in known:
+        known[index.index_id] = index.terms.get_indexer(words.to_numpy(object))
+    parts = cand["suggestion"].astype(object).reset_index(drop=True).str.split(" ").explode()
+    used = parts.notna().to_numpy() & (parts.to_numpy(object) != "")
+    flat = parts.to_numpy(object)[used]
+    sizes = np.bincount(parts.index.to_numpy()[used], minlength=len(cand)).astype(np.int64)
+    codes = words.get_indexer(flat).astype(np.int64)
+    new, new_codes = pd.factorize(flat[codes < 0])
+    codes[codes < 0] = len(words) + new
+    term_of = np.concatenate(
+        [known[index.index_id], index.terms.get_indexer(np.asarray(new_codes, dtype=object))]
+    )
+    return np.r_[0, np.cumsum(sizes)], codes, term_of
+
+
+def ok_rewrites(
+    seq: pd.DataFrame,
+    cand: pd.DataFrame,
+    pairs: pd.DataFrame,
+    index: Index,
+    min_score: float,
+    min_coverage: float,
+) -> np.ndarray:
+    """Whether each (cand, row) of ``pairs`` is ok once rewritten (see :func:`rewrite`).
+
+    ``seq`` and ``cand`` as made by :func:`_prepared`. The rewritten query of pair p is, in
+    word codes: the terms of query ``row`` with each occurrence of the candidate's term (both
+    words, adjacent, for a two-word term) replaced by the suggestion's words. Its distinct words
+    are counted and the pairs whose counts are equal share one re-scoring.
+    """
+    n_pairs = len(pairs)
+    if not n_pairs:
+        return np.zeros(0, bool)
+    sugg_ptr, sugg_codes, term_of = _suggestion_codes(cand, seq, index)
+    term_code = seq["term_code"].to_numpy(np.int64)
+    next_code = seq["next_code"].to_numpy(np.int64)
+    seq_row = seq["row"].to_numpy(np.int64)
+    length = np.bincount(seq_row, minlength=int(pairs["row"].max()) + 1)
+    start = np.cumsum(length) - length
+    row = pairs["row"].to_numpy(np.int64)
+    at_cand = pd.Index(cand["cand"].to_numpy()).get_indexer(pairs["cand"].to_numpy())
+    # One entry per (pair, position of its query): the query's terms in order.
+    sizes = length[row]
+    pair_of = np.repeat(np.arange(n_pairs), sizes)
+    offset = _ranks(sizes)
+    at = np.repeat(start[row], sizes) + offset
+    term, nxt = term_code[at], next_code[at]
+    first = cand["first_code"].to_numpy(np.int64)[at_cand][pair_of]
+    second = cand["second_code"].to_numpy(np.int64)[at_cand][pair_of]
+    prev = np.where(offset > 0, term_code[at - 1], 0)
+    is_first = (term == first) & ((second == 0) | (nxt == second))
+    is_second = (second != 0) & (term == second) & (prev == first)
+    # Replaced occurrences give the suggestion's words; the others stay.
+    swap = np.flatnonzero(is_first)
+    swap_cand = at_cand[pair_of[swap]]
+    n_words = np.diff(sugg_ptr)[swap_cand]
+    kept = ~is_first & ~is_second
+    words_pair = np.concatenate([pair_of[kept], np.repeat(pair_of[swap], n_words)])
+    words_code = np.concatenate(
+        [term[kept], sugg_codes[np.repeat(sugg_ptr[swap_cand], n_words) + _ranks(n_words)]]
+    )
+    # Distinct words per rewritten query, with their counts, sorted by pair then word.
+    n_codes = len(term_of)
+    key, count = np.unique(words_pair * n_codes + words_code, return_counts=True)
+    entry_pair, entry_code = key // n_codes, key % n_codes
+    query_of, is_rep = _same_counts(entry_pair, entry_code, count, n_pairs)
+    rep = is_rep[entry_pair]
+    ok = ok_terms(
+        terms_of_counts(
+            query_of[entry_pair[rep]],
+            term_of[entry_code[rep]],
+            entry_code[rep],
+            count[rep],
+            int(query_of.max()) + 1,
+            index,
+        ),
+        index,
+        min_score,
+        min_coverage,
+    )
+    return ok[query_of]
+
+
+_MIX = (np.uint64(0x9E3779B97F4A7C15), np.uint64(0xC2B2AE3D27D4EB4F))
+
+
+def _same_counts(
+    entry_pair: np.ndarray, entry_code: np.ndarray, count: np.ndarray, n_pairs: int
+) -> tuple[np.ndarray, np.ndarray]:
+    """Number the distinct word counts of ``n_pairs`` rewritten queries: (query of each pair,
+    True for the first pair of each query).
+
+    Entries are (pair, word code, count), sorted by pair then code. Pairs are grouped by a
+    128-bit hash of their entries, then every pair is compared entry by entry with the first
+    of its group; one that differs (a hash collision) gets a query of its own, so equal counts
+    are the only thing ever shared.
+    """
+    sizes = np.bincount(entry_pair, minlength=n_pairs)
+    starts = np.cumsum(sizes) - sizes
+    value = (entry_code.astype(np.uint64) << np.uint64(20)) ^ count.astype(np.uint64)
+    hashes = []
+    with np.errstate(over="ignore"):
+        for mix in _MIX:
+            h = value * mix
+            h ^= h >> np.uint64(29)
+            h *= mix
+            per = np.zeros(n_pairs, np.uint64)
+            if h.size:
+                per[sizes > 0] = np.add.reduceat(h, starts[sizes > 0])
+            hashes.append(per)
+    keys = np.stack([hashes[0], hashes[1], sizes.astype(np.uint64)], axis=1)
+    _, first_of, query_of = np.unique(keys, axis=0, return_index=True, return_inverse=True)
+    query_of = query_of.ravel().astype(np.int64)
+    rep = first_of[query_of]  # the first pair of each pair's group
+    other = np.repeat(starts[rep], sizes) + _ranks(sizes)
+    differs = (entry_code != entry_code[other]) | (count != count[other])
+    bad = np.flatnonzero(np.bincount(entry_pair[differs], minlength=n_pairs) > 0)
+    query_of[bad] = len(first_of) + np.arange(bad.size)
+    is_rep = np.zeros(n_pairs, bool)
+    is_rep[first_of] = True
+    is_rep[bad] = True
+    return query_of, is_rep
 
 
 def measure(
@@ -231,12 +375,9 @@ def rescued_unless_beaten(
         if not wave.any():
             break
         part = pairs[wave]
-        done = _rewritten(seq, cand, part)
-        unique, codes = np.unique(done["rewritten"].to_numpy(object), return_inverse=True)
-        ok = ok_queries(pd.Series(unique, dtype=object), index, min_score, min_coverage)[codes]
-        done_pos = pd.Index(cand["cand"].to_numpy()).get_indexer(done["cand"].to_numpy())
-        got = np.where(ok, np.asarray(searches)[done["row"].to_numpy()], 0)
-        found += np.bincount(done_pos, weights=got, minlength=len(cand)).astype(np.int64)
+        ok = ok_rewrites(seq, cand, part, index, min_score, min_coverage)
+        got = np.where(ok, part["n"].to_numpy(), 0)
+        found += np.bincount(part["pos"], weights=got, minlength=len(cand)).astype(np.int64)
         left -= np.bincount(part["pos"], weights=part["n"], minlength=len(cand)).astype(np.int64)
         still = np.flatnonzero(active & (left > 0))
         active[:] = False

@@ -160,8 +160,45 @@ def ok_queries(
     floor that lets the kernel stop reading most postings (:func:`top_k_scores`).
     """
     qt = query_terms(pd.Series(queries, dtype=object).reset_index(drop=True), index)
+    return ok_terms(qt, index, min_score, min_coverage)
+
+
+def ok_terms(qt: QueryTerms, index: Index, min_score: float, min_coverage: float) -> np.ndarray:
+    """:func:`ok_queries` of queries already split into terms (:func:`terms_of_counts`)."""
     got = measure_terms(qt, index, k=1, floor=max(min_score, 0.0))
     return is_ok(got.n_known, got.best_score, got.coverage, min_score, min_coverage)
+
+
+def terms_of_counts(
+    rows: np.ndarray,
+    term_ids: np.ndarray,
+    unknown_keys: np.ndarray,
+    counts: np.ndarray,
+    n: int,
+    index: Index,
+) -> QueryTerms:
+    """The :class:`QueryTerms` of ``n`` queries given as their distinct terms and counts.
+
+    Entry i is a term of query ``rows[i]`` occurring ``counts[i]`` times: index column
+    ``term_ids[i]``, or -1 when no page has it, told apart from the query's other unknown terms
+    by ``unknown_keys[i]`` (>= 0). The matrices are built as :func:`query_terms` builds them,
+    so the same queries get the same weights; ``long`` holds ``row`` and ``term_id``, all that
+    :func:`measure_terms` reads.
+    """
+    rows = np.asarray(rows, np.int64)
+    term_ids = np.asarray(term_ids, np.int64)
+    counts = np.asarray(counts, np.float64)
+    known = term_ids >= 0
+    known_m = sp.csr_matrix(
+        (counts[known], (rows[known], term_ids[known])), shape=(n, len(index.terms))
+    )
+    known_m.sort_indices()
+    ucodes, _ = pd.factorize(np.asarray(unknown_keys)[~known])
+    unknown_m = sp.csr_matrix(
+        (counts[~known], (rows[~known], ucodes)),
+        shape=(n, int(ucodes.max()) + 1 if len(ucodes) else 0),
+    )
+    return QueryTerms(known_m, unknown_m, pd.DataFrame({"row": rows, "term_id": term_ids}))
 
 
 @dataclass(frozen=True)
