@@ -92,18 +92,25 @@ CLUSTERS_IN_RESULT = 20
 Progress = Callable[[str], None]
 
 
+#: Queries scored and stored at a time: the score tables of a million queries take about 1 GB
+#: as frames, a quarter of that per part keeps the stage's peak memory down.
+SCORE_PART = 250_000
+
+
 def score_stage(conn: duckdb.DuckDBPyConnection, params: dict[str, object]) -> int:
     """Score and store the window's queries not yet scored against the index; their number.
 
-    A function of its own so the index and the score tables (about 1 GB at a million queries)
-    are freed before the later stages run, not kept alive to the end of the review.
+    The queries are scored and stored ``SCORE_PART`` at a time, in one transaction (all or
+    none are stored). A function of its own so the index is freed before the later stages run.
     """
     todo = frame(conn, "review_unscored_queries", params)["query"]
     if len(todo):
         index = load_index(conn)
-        tables = score_queries(todo, index)
         with transaction(conn):
-            store_scores(conn, str(params["index_id"]), tables)
+            for start in range(0, len(todo), SCORE_PART):
+                tables = score_queries(todo.iloc[start : start + SCORE_PART], index)
+                store_scores(conn, str(params["index_id"]), tables)
+                del tables
     return len(todo)
 
 

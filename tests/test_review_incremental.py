@@ -94,3 +94,28 @@ def test_rebuilding_sessions_never_repeats_a_key(conn, tmp_path) -> None:
             f"SELECT count(*), count(DISTINCT ({key})) FROM {table}"
         ).fetchall()[0]
         assert total == distinct == 4, table
+
+
+def test_scoring_in_parts_stores_what_one_part_stores(tmp_path, monkeypatch) -> None:
+    # The score stage stores SCORE_PART queries at a time; parts of 2 must give the tables one
+    # part gives, row for row.
+    import querygap.review as review
+    from querygap.workspace import connect
+
+    queries = ["water meter", "leak", "pay bill", "sofa", "meeter", "sofas", "lake", "bill"]
+    tables = {}
+    for part in (1000, 2):
+        monkeypatch.setattr(review, "SCORE_PART", part)
+        conn = connect(tmp_path / f"ws{part}.duckdb")
+        (tmp_path / "pages.csv").write_text(CONTENT, encoding="utf-8")
+        load_content(conn, tmp_path / "pages.csv", ContentOptions(source="site"))
+        load_log(conn, log(tmp_path / "w1.csv", "2025-03-04", queries), LoadOptions())
+        done = run_review(conn, week_of(datetime(2025, 3, 4)), ReviewSettings(), None)
+        assert done.scored_now == len(queries)
+        tables[part] = {
+            name: conn.execute(f"SELECT * EXCLUDE (index_id) FROM {name} ORDER BY ALL").fetchall()
+            for name in ("query_scores", "query_top_pages", "query_terms")
+        }
+        conn.close()
+    assert len(tables[2]["query_scores"]) == len(queries) and tables[2]["query_top_pages"]
+    assert tables[2] == tables[1000]
