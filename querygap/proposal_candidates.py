@@ -24,13 +24,20 @@ def candidates_for(
     subs: pd.DataFrame,
     contexts: pd.DataFrame,
     settings: ProposalSettings,
+    joins: pd.DataFrame | None = None,
 ) -> pd.DataFrame:
-    """All candidates of the eligible terms: term, suggestion, kind, how and evidence counts."""
+    """All candidates of the eligible terms: term, suggestion, kind, how and evidence counts.
+
+    ``joins``: :func:`querygap.nearmiss.join_candidates` of ``sequences``, when the caller has it.
+    """
     unknown = terms.loc[terms["df"] == 0, "term"]
     spell = spelling_candidates(unknown, vocab, limit=settings.max_candidates)
     spell = spell.assign(kind="spelling", how="edit")
     var = pd.concat(
-        [variant_candidates(unknown, vocab), join_candidates(sequences, vocab)],
+        [
+            variant_candidates(unknown, vocab),
+            join_candidates(sequences, vocab) if joins is None else joins,
+        ],
         ignore_index=True,
     ).assign(kind="variant")
     cands = pd.concat([var, spell], ignore_index=True)

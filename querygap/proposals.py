@@ -342,7 +342,7 @@ def propose(
     joins = join_candidates(occ, vocab)
     words = joins["term"].str.split(" ", n=1, expand=True)
     unmatched = set(failing_terms["term"])
-    cands = candidates_for(eligible, vocab, occ, subs, contexts, settings)
+    cands = candidates_for(eligible, vocab, occ, subs, contexts, settings, joins)
     if not joins.empty:
         keep = words[0].isin(unmatched) | words[1].isin(unmatched)
         cands = cands[~cands["term"].isin(joins.loc[~keep, "term"])]

@@ -80,13 +80,28 @@ def _prepared(
     return seq, cand
 
 
+def _ranks(sizes: np.ndarray) -> np.ndarray:
+    """0, 1, ..., size - 1 for each size, concatenated."""
+    return np.arange(int(sizes.sum())) - np.repeat(np.cumsum(sizes) - sizes, sizes)
+
+
 def _pairs(seq: pd.DataFrame, cand: pd.DataFrame) -> pd.DataFrame:
-    hits = seq[["row", "term_code", "next_code"]].merge(
-        cand[["cand", "first_code", "second_code"]], left_on="term_code", right_on="first_code"
-    )
-    second = hits["second_code"].to_numpy()
-    hits = hits[(second == 0) | (second == hits["next_code"].to_numpy())]
-    return hits[["cand", "row"]].drop_duplicates()
+    """The distinct (cand, row) of each candidate and the queries holding its term, sorted by
+    candidate (in ``cand`` order) then row; index arithmetic over the term codes, so the
+    millions of pairs of a large review never pass through a pandas merge or hash table."""
+    first = cand["first_code"].to_numpy(np.int64)
+    second = cand["second_code"].to_numpy(np.int64)
+    by_first = np.argsort(first, kind="stable")
+    term = seq["term_code"].to_numpy(np.int64)
+    lo = np.searchsorted(first[by_first], term, "left")
+    n_hits = np.searchsorted(first[by_first], term, "right") - lo
+    entry = np.repeat(np.arange(term.size), n_hits)
+    at_cand = by_first[np.repeat(lo, n_hits) + _ranks(n_hits)]
+    both = (second[at_cand] == 0) | (second[at_cand] == seq["next_code"].to_numpy(np.int64)[entry])
+    rows = seq["row"].to_numpy(np.int64)
+    n_rows = int(rows.max()) + 1 if rows.size else 1
+    key = np.unique(at_cand[both] * n_rows + rows[entry[both]])
+    return pd.DataFrame({"cand": cand["cand"].to_numpy()[key // n_rows], "row": key % n_rows})
 
 
 def affected_rows(sequences: pd.DataFrame, candidates: pd.DataFrame) -> pd.DataFrame:
@@ -170,11 +185,6 @@ def rescued_searches(
     got = np.where(ok, np.asarray(searches)[pairs["row"].to_numpy()], 0)
     rescued = pd.Series(got, dtype=np.int64).groupby(pairs["cand"].to_numpy()).sum()
     return rescued.reindex(candidates["cand"].to_numpy(), fill_value=0).astype(np.int64)
-
-
-def _ranks(sizes: np.ndarray) -> np.ndarray:
-    """0, 1, ..., size - 1 for each size, concatenated."""
-    return np.arange(int(sizes.sum())) - np.repeat(np.cumsum(sizes) - sizes, sizes)
 
 
 def _suggestion_codes(
