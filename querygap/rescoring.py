@@ -50,14 +50,19 @@ def sequences_of(queries: pd.Series, index: Index) -> pd.DataFrame:
 
 def _with_codes(sequences: pd.DataFrame) -> pd.DataFrame:
     """``sequences`` with ``next`` (the following term of the same query, ``""`` at the end),
-    and ``term_code``/``next_code``: positions in ``attrs["words"]``, the distinct terms after
-    ``""`` (code 0, the empty word)."""
+    ``term_code``/``next_code``: positions in ``attrs["words"]``, the distinct terms after
+    ``""`` (code 0, the empty word), and ``repeats``: True on every term of a query that holds
+    some term more than once."""
     seq = sequences[["row", "pos", "term"]].reset_index(drop=True)
     seq["term"] = seq["term"].astype(object)  # an empty frame may come back float-typed
     seq["next"] = seq["term"].shift(-1).where(seq["row"].eq(seq["row"].shift(-1)), "")
     words = pd.Index(pd.unique(np.concatenate([[""], seq["term"].to_numpy(object)]).astype(object)))
     seq["term_code"] = words.get_indexer(seq["term"].to_numpy(object))
     seq["next_code"] = words.get_indexer(seq["next"].to_numpy(object))
+    rows = seq["row"].to_numpy(np.int64)
+    key = np.sort(rows * len(words) + seq["term_code"].to_numpy(np.int64))
+    again = key[1:][key[1:] == key[:-1]] // len(words)
+    seq["repeats"] = np.isin(rows, again)
     seq.attrs["words"] = words
     return seq
 
@@ -67,7 +72,7 @@ def _prepared(
 ) -> tuple[pd.DataFrame, pd.DataFrame]:
     """The sequences and candidates with their words as integer codes of one vocabulary, so
     the joins below compare integers; a candidate word no query has gets -1 (matches none)."""
-    ready = "term_code" in sequences.columns and "words" in sequences.attrs
+    ready = "repeats" in sequences.columns and "words" in sequences.attrs
     seq = sequences if ready else _with_codes(sequences)
     words = seq.attrs["words"]
     cand = candidates[["cand", "term", "suggestion"]].copy()
@@ -86,22 +91,35 @@ def _ranks(sizes: np.ndarray) -> np.ndarray:
 
 
 def _pairs(seq: pd.DataFrame, cand: pd.DataFrame) -> pd.DataFrame:
-    """The distinct (cand, row) of each candidate and the queries holding its term, sorted by
-    candidate (in ``cand`` order) then row; index arithmetic over the term codes, so the
-    millions of pairs of a large review never pass through a pandas merge or hash table."""
+    """The distinct (cand, row) of each candidate and the queries holding its term.
+
+    Index arithmetic over the word codes, so the millions of pairs of a large review never
+    pass through a pandas merge or hash table: the candidates sorted by first word, each term
+    of a query finds those starting with it by its code. Only queries holding a term twice can
+    give a pair twice; only theirs are made distinct.
+    """
     first = cand["first_code"].to_numpy(np.int64)
     second = cand["second_code"].to_numpy(np.int64)
-    by_first = np.argsort(first, kind="stable")
     term = seq["term_code"].to_numpy(np.int64)
-    lo = np.searchsorted(first[by_first], term, "left")
-    n_hits = np.searchsorted(first[by_first], term, "right") - lo
+    n_codes = len(seq.attrs["words"])
+    usable = np.flatnonzero(first >= 0)
+    by_first = usable[np.argsort(first[usable], kind="stable")]
+    per_code = np.bincount(first[usable], minlength=n_codes)
+    n_hits = per_code[term]
+    lo = (np.cumsum(per_code) - per_code)[term]
     entry = np.repeat(np.arange(term.size), n_hits)
     at_cand = by_first[np.repeat(lo, n_hits) + _ranks(n_hits)]
-    both = (second[at_cand] == 0) | (second[at_cand] == seq["next_code"].to_numpy(np.int64)[entry])
-    rows = seq["row"].to_numpy(np.int64)
-    n_rows = int(rows.max()) + 1 if rows.size else 1
-    key = np.unique(at_cand[both] * n_rows + rows[entry[both]])
-    return pd.DataFrame({"cand": cand["cand"].to_numpy()[key // n_rows], "row": key % n_rows})
+    nxt = seq["next_code"].to_numpy(np.int64)[entry]
+    both = (second[at_cand] == 0) | (second[at_cand] == nxt)
+    entry, at_cand = entry[both], at_cand[both]
+    rows = seq["row"].to_numpy(np.int64)[entry]
+    twice = seq["repeats"].to_numpy(bool)[entry]
+    if twice.any():
+        n_rows = int(rows.max()) + 1
+        key = np.unique(at_cand[twice] * n_rows + rows[twice])
+        at_cand = np.concatenate([at_cand[~twice], key // n_rows])
+        rows = np.concatenate([rows[~twice], key % n_rows])
+    return pd.DataFrame({"cand": cand["cand"].to_numpy()[at_cand], "row": rows})
 
 
 def affected_rows(sequences: pd.DataFrame, candidates: pd.DataFrame) -> pd.DataFrame:
