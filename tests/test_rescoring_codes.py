@@ -6,10 +6,11 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 import pytest
+from index_helpers import index_of_pages
 
 from querygap import rescoring
 from querygap.analyzer import AnalyzerSettings
-from querygap.indexing import Index, IndexSettings, field_counts
+from querygap.indexing import Index, IndexSettings
 from querygap.rescoring import (
     _pairs,
     _prepared,
@@ -20,7 +21,6 @@ from querygap.rescoring import (
     sequences_of,
 )
 from querygap.scoring import ok_queries
-from querygap.weighting import document_frequency, page_weights
 
 
 def index_of(bodies: list[str], stem: bool = False) -> Index:
@@ -32,18 +32,7 @@ def index_of(bodies: list[str], stem: bool = False) -> Index:
             "body": bodies,
         }
     )
-    settings = IndexSettings(analyzer=AnalyzerSettings(stem=stem))
-    counts, vocab = field_counts(pages, settings)
-    vectors, idf = page_weights(counts, settings.weighting)
-    return Index(
-        "test",
-        settings,
-        pages["doc_id"].to_numpy(object),
-        pd.Index(vocab),
-        idf,
-        document_frequency(counts),
-        vectors,
-    )
+    return index_of_pages(pages, IndexSettings(analyzer=AnalyzerSettings(stem=stem)))
 
 
 BODIES = [

@@ -6,14 +6,14 @@ import numpy as np
 import pandas as pd
 import pytest
 import scipy.sparse as sp
+from index_helpers import index_of_pages
 from sklearn.metrics.pairwise import cosine_similarity
 from sklearn.preprocessing import normalize
 
 from querygap import scoring_kernel
-from querygap.indexing import Index, IndexSettings, field_counts
+from querygap.indexing import Index
 from querygap.scoring import score_queries
 from querygap.scoring_kernel import top_k_scores
-from querygap.weighting import document_frequency, page_weights
 
 needs_numba = pytest.mark.skipif(not scoring_kernel.HAVE_NUMBA, reason="numba is not installed")
 
@@ -77,18 +77,7 @@ def small_index() -> Index:
             ],
         }
     )
-    settings = IndexSettings()
-    counts, vocab = field_counts(pages, settings)
-    vectors, idf = page_weights(counts, settings.weighting)
-    return Index(
-        "test",
-        settings,
-        pages["doc_id"].to_numpy(object),
-        pd.Index(vocab),
-        idf,
-        document_frequency(counts),
-        vectors,
-    )
+    return index_of_pages(pages)
 
 
 def test_score_queries_gives_the_same_tables_on_both_paths() -> None:
