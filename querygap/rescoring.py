@@ -22,7 +22,7 @@ from collections.abc import Callable
 import numpy as np
 import pandas as pd
 
-from querygap.analyzer import analyze_series
+from querygap.analyzer import _ranks, analyze_series  # 0..n-1 per size, concatenated
 from querygap.indexing import Index
 from querygap.scoring import is_ok, ok_terms, terms_of_counts
 
@@ -83,11 +83,6 @@ def _prepared(
     cand["first_code"] = words.get_indexer(cand["first"].to_numpy(object))
     cand["second_code"] = words.get_indexer(cand["second"].to_numpy(object))
     return seq, cand
-
-
-def _ranks(sizes: np.ndarray) -> np.ndarray:
-    """0, 1, ..., size - 1 for each size, concatenated."""
-    return np.arange(int(sizes.sum())) - np.repeat(np.cumsum(sizes) - sizes, sizes)
 
 
 def _pairs(seq: pd.DataFrame, cand: pd.DataFrame) -> pd.DataFrame:
