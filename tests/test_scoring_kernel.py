@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+import dataclasses
+
 import numpy as np
 import pandas as pd
 import pytest
@@ -142,6 +144,79 @@ def test_the_max_score_stop_skips_postings_and_stays_exact(k: int) -> None:
     b = top_k_scores(q, d.T.tocsr(), k, use_compiled=False)
     for x, y in zip((rows, docs, vals), b, strict=True):
         np.testing.assert_array_equal(x, y)
+
+
+def without_dense_rows(ready: scoring_kernel.Postings) -> scoring_kernel.Postings:
+    """The same postings with no dense rows: every look-up goes by binary search."""
+    n_docs = ready.matrix.shape[1]
+    return dataclasses.replace(
+        ready, dense_slot=np.full_like(ready.dense_slot, -1), dense=np.zeros((0, n_docs))
+    )
+
+
+def assert_top_k_is_the_cosine(q, d, rows, docs, vals, k: int, floor: float = 0.0) -> None:
+    """Reference: scikit-learn's cosine_similarity, dense; the top k among cosines >= floor,
+    pages trading places only where their cosines tie to rounding."""
+    dense = cosine_similarity(q, d)
+    for row in range(q.shape[0]):
+        order = np.argsort(-dense[row], kind="stable")[:k]
+        want = [c for c in order if dense[row, c] >= floor and dense[row, c] > 0]
+        got = docs[rows == row]
+        assert len(got) == len(want)
+        np.testing.assert_allclose(vals[rows == row], dense[row, want], rtol=0, atol=1e-12)
+        assert set(got) == set(want) or np.allclose(dense[row, got], dense[row, want], atol=1e-12)
+
+
+@needs_numba
+@pytest.mark.parametrize("dense_rows", [True, False])
+@pytest.mark.parametrize(("k", "floor"), [(1, 0.0), (5, 0.0), (1, 0.3), (5, 0.2)])
+def test_the_impact_cut_reads_less_and_stays_exact(dense_rows: bool, k: int, floor: float) -> None:
+    q, d = zipf_problem(17, n_q=300, n_d=2000)
+    ready = scoring_kernel.prepare_postings(d.T.tocsr())
+    if not dense_rows:
+        ready = without_dense_rows(ready)
+    counts: dict[str, int] = {}
+    rows, docs, vals = top_k_scores(q, ready, k, use_compiled=True, counts=counts, floor=floor)
+    touched = int(np.diff(d.T.tocsr().indptr)[q.indices].sum())
+    assert counts["cut"] > 0
+    assert counts["scanned"] < touched
+    assert_top_k_is_the_cosine(q, d, rows, docs, vals, k, floor)
+    b = top_k_scores(q, d.T.tocsr(), k, use_compiled=False, floor=floor)
+    for x, y in zip((rows, docs, vals), b, strict=True):
+        np.testing.assert_array_equal(x, y)
+
+
+@needs_numba
+@pytest.mark.parametrize("k", [1, 3, 5])
+def test_the_impact_cut_breaks_ties_by_the_lower_page(k: int) -> None:
+    # Every page four times over: each weight ties with three others, so the cut often falls
+    # inside a run of equal weights and the lower page rows must still win.
+    q, d = zipf_problem(19, n_q=300, n_d=500)
+    d = sp.csr_matrix(sp.vstack([d] * 4))
+    counts: dict[str, int] = {}
+    rows, docs, vals = top_k_scores(q, d.T.tocsr(), k, use_compiled=True, counts=counts)
+    assert counts["cut"] > 0
+    b = top_k_scores(q, d.T.tocsr(), k, use_compiled=False)
+    for x, y in zip((rows, docs, vals), b, strict=True):
+        np.testing.assert_array_equal(x, y)
+    # Reference: scikit-learn's cosine; among equal cosines the lowest page rows come first.
+    dense = cosine_similarity(q, d)
+    for row in np.unique(rows)[:50]:
+        best = dense[row].max()
+        ties = np.flatnonzero(np.isclose(dense[row], best, rtol=0, atol=1e-12))
+        assert docs[rows == row][0] == ties.min()
+
+
+def test_impact_order_sorts_each_term_by_weight_falling_then_page_row() -> None:
+    m = sp.random(300, 500, density=0.05, format="csr", random_state=3)
+    m.data = np.round(m.data * 4) / 4 + 0.25  # few distinct weights: many ties
+    m.sort_indices()
+    got_rows, got_weights = scoring_kernel.impact_order(m)
+    # Reference: numpy's lexsort on (term, weight falling, page row).
+    terms = np.repeat(np.arange(m.shape[0]), np.diff(m.indptr))
+    want = np.lexsort((m.indices, -m.data, terms))
+    np.testing.assert_array_equal(got_rows, m.indices[want])
+    np.testing.assert_array_equal(got_weights, m.data[want])
 
 
 @pytest.mark.parametrize("path", [pytest.param(True, marks=needs_numba), False])
