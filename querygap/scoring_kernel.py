@@ -163,6 +163,18 @@ def _kth_largest(acc: np.ndarray, touched: np.ndarray, n: int, k: int, buf: np.n
     return buf[k - 1] if n_buf == k else 0.0
 
 
+def _first_at_least(p_idx: np.ndarray, lo: int, hi: int, d: int) -> int:
+    """The first position in ``lo:hi`` of the sorted ``p_idx`` holding ``d`` or more (binary
+    search; ``hi`` when none)."""
+    while lo < hi:
+        mid = (lo + hi) >> 1
+        if p_idx[mid] < d:
+            lo = mid + 1
+        else:
+            hi = mid
+    return lo
+
+
 def _read_by_impact(
     acc: np.ndarray,
     touched: np.ndarray,
@@ -232,14 +244,7 @@ def _read_by_impact(
         if row.size:
             v = row[d]
         else:
-            left = lo
-            right = hi
-            while left < right:
-                mid = (left + right) >> 1
-                if p_idx[mid] < d:
-                    left = mid + 1
-                else:
-                    right = mid
+            left = _first_at_least(p_idx, lo, hi, d)
             v = p_val[left] if left < hi and p_idx[left] == d else 0.0
         if v > 0.0 and (v < v_cut or (v == v_cut and d > d_cut)):
             acc[d] += wq * v
@@ -383,13 +388,7 @@ def _kernel_py(
                 if 4 * n_touched * steps < length:  # binary search from the last hit
                     for i in range(n_touched):
                         d = touched[i]
-                        right = hi
-                        while pos < right:
-                            mid = (pos + right) >> 1
-                            if p_idx[mid] < d:
-                                pos = mid + 1
-                            else:
-                                right = mid
+                        pos = _first_at_least(p_idx, pos, hi, d)
                         if pos == hi:
                             break
                         if p_idx[pos] == d:
@@ -436,6 +435,7 @@ def _kernel_py(
 
 if HAVE_NUMBA:
     _kth_largest = numba.njit(cache=True, nogil=True)(_kth_largest)
+    _first_at_least = numba.njit(cache=True, nogil=True, inline="always")(_first_at_least)
     _read_by_impact = numba.njit(cache=True, nogil=True)(_read_by_impact)
     _kernel = numba.njit(parallel=True, cache=True, nogil=True)(_kernel_py)
 else:  # pragma: no cover
