@@ -62,7 +62,7 @@ import duckdb
 import numpy as np
 import pandas as pd
 
-from querygap.errors import StageOrderError
+from querygap.errors import ConfigError, StageOrderError
 from querygap.gap_topics import gap_terms, gap_topics, topic_confidence
 from querygap.indexing import Index, load_index
 from querygap.nearmiss import join_candidates
@@ -83,6 +83,7 @@ from querygap.rescoring import (
     status_of,
     volume,
 )
+from querygap.sessions import STEP_GAP_SECONDS
 from querygap.workspace import frame, run, transaction
 
 __all__ = [
@@ -303,6 +304,11 @@ def propose(
 ) -> ProposalRun:
     """Build, measure, rank and store the proposals of a review (replacing an earlier run)."""
     settings = settings or ProposalSettings()
+    if settings.max_gap_seconds > STEP_GAP_SECONDS:
+        raise ConfigError(
+            f"max_gap_seconds {settings.max_gap_seconds:g}: the session stage keeps steps at "
+            f"most {STEP_GAP_SECONDS} s apart"
+        )
     review = frame(conn, "propose_review", {"review_id": review_id})
     if review.empty:
         raise StageOrderError(f"review {review_id} does not exist; run 'querygap review' first")

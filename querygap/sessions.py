@@ -43,6 +43,10 @@ from querygap.windows import Window
 from querygap.workspace import frame, run, transaction
 
 VERDICTS = ("bot", "suspect", "human")
+# Steps (consecutive searches of different queries) are kept when at most this far apart: twice
+# the proposal stage's reformulation window (ProposalSettings.max_gap_seconds, 5 minutes), and
+# far fewer than all steps (at the benchmark's size M, 74k of 18.6M).
+STEP_GAP_SECONDS = 600
 
 
 @dataclass(frozen=True)
@@ -128,18 +132,28 @@ def build_sessions(
     with transaction(conn):
         run(conn, "sessions_clear")
         run(conn, "sessions_clear_traffic")
+        run(conn, "sessions_clear_steps")
         run(conn, "sessions_actors")
         rows = run(conn, "sessions_rows").fetchnumpy()
         actor = np.asarray(rows["actor"])
+        at_us = np.asarray(rows["at_us"])
         split = split_sessions(
             actor,
             np.asarray(rows["is_user"]),
-            np.asarray(rows["at_us"]),
+            at_us,
             round(settings.gap_minutes * 60 * 1_000_000),
         )
         file_id = np.asarray(rows["file_id"])
         line = np.asarray(rows["line"])
-        del rows
+        steps = session_steps(
+            STEP_GAP_SECONDS * 1_000_000,
+            split.row_session,
+            np.asarray(rows["query_hash"]),
+            at_us,
+            file_id,
+            line,
+        )
+        del rows, at_us
         figures = pa.table(
             {
                 "session": np.arange(split.first_row.size, dtype=np.int64),
@@ -160,6 +174,10 @@ def build_sessions(
         conn.unregister("session_figures")
         del figures
         run(conn, "sessions_traffic")
+        conn.register("session_steps", steps)
+        run(conn, "sessions_steps")
+        conn.unregister("session_steps")
+        del steps
         per_row = pa.table({"file_id": file_id, "line": line, "session": split.row_session})
         conn.register("session_rows", per_row)
         run(conn, "sessions_assign")
@@ -167,6 +185,39 @@ def build_sessions(
         run(conn, "sessions_drop_named")
         run(conn, "sessions_drop_actors")
     return frame(conn, "sessions_summary")
+
+
+def session_steps(
+    max_gap_us: int,
+    row_session: np.ndarray,
+    query_hash: np.ndarray,
+    at_us: np.ndarray,
+    file_id: np.ndarray,
+    line: np.ndarray,
+) -> pa.Table:
+    """The steps of searches sorted in session order: each search followed by the next search
+    of the same session with another query hash, at most ``max_gap_us`` later (session,
+    file_id, line, next_file_id, next_line, searched_us, gap_us; times in microseconds). A
+    repeat of the same query in between is skipped: the step then starts at the repeat's last
+    search."""
+    gap = at_us[1:] - at_us[:-1]
+    at = np.flatnonzero(
+        (row_session[1:] == row_session[:-1])
+        & (query_hash[1:] != query_hash[:-1])
+        & (gap <= max_gap_us)
+    )
+    nxt = at + 1
+    return pa.table(
+        {
+            "session": row_session[at],
+            "file_id": file_id[at],
+            "line": line[at],
+            "next_file_id": file_id[nxt],
+            "next_line": line[nxt],
+            "searched_us": at_us[at],
+            "gap_us": gap[at],
+        }
+    )
 
 
 def record_review_bots(conn: duckdb.DuckDBPyConnection, window: Window) -> dict[str, int]:

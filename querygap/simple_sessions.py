@@ -9,6 +9,7 @@ from __future__ import annotations
 
 import duckdb
 
+from querygap.sessions import STEP_GAP_SECONDS
 from querygap.workspace import run, transaction
 
 
@@ -18,7 +19,8 @@ def fill_simple_sessions(
     bot_searches: int = 30,
     bot_seconds: float = 5.0,
 ) -> bool:
-    """Fill search_sessions with 30-minute sessions per user when nothing else has filled it.
+    """Fill search_sessions (and their steps, search_steps) with 30-minute sessions per user
+    when nothing else has filled them.
 
     Returns whether it filled the table. See sql/propose.sql ``sessions_fill_simple``.
     """
@@ -30,4 +32,5 @@ def fill_simple_sessions(
             "sessions_fill_simple",
             {"gap_minutes": gap_minutes, "bot_searches": bot_searches, "bot_seconds": bot_seconds},
         )
+        run(conn, "steps_fill_simple", {"max_gap_us": STEP_GAP_SECONDS * 1_000_000})
     return True

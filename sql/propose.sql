@@ -34,25 +34,24 @@ ORDER BY v.term_id;
 -- name: propose_substitutions
 -- Consecutive searches of one session (bots excluded) at most $max_gap_seconds apart whose queries
 -- differ in exactly one term: (term_from -> term_to), with the pair's count and both statuses.
--- Reads searches, search_sessions, query_terms, review_queries.
+-- Reads search_steps (kept by the session stage: consecutive searches of different queries, up
+-- to querygap.sessions.STEP_GAP_SECONDS apart), searches, query_terms, review_queries.
 -- $review_id: the review
 -- $index_id: the index the review scored against
 -- $start: window start (inclusive)
 -- $end: window end (exclusive)
 -- $max_gap_seconds: longest gap between the two searches
-WITH s AS (
-    SELECT x.searched_at, x.query, ss.session_id
-    FROM searches x JOIN search_sessions ss ON ss.file_id = x.file_id AND ss.line = x.line
-    WHERE NOT ss.is_bot AND x.searched_at >= $start AND x.searched_at < $end
-), seq AS (
-    SELECT query, searched_at,
-           lead(query) OVER w AS next_query, lead(searched_at) OVER w AS next_at
-    FROM s WINDOW w AS (PARTITION BY session_id ORDER BY searched_at, query)
+WITH st AS (
+    SELECT * FROM search_steps
+    WHERE searched_us >= epoch_us($start::TIMESTAMPTZ) AND searched_us + gap_us < epoch_us($end::TIMESTAMPTZ)
+      AND gap_us <= $max_gap_seconds * 1000000
 ), p AS (
-    SELECT query, next_query, count(*) AS pairs FROM seq
-    WHERE next_query IS NOT NULL AND next_query <> query
-      AND epoch(next_at) - epoch(searched_at) <= $max_gap_seconds
-    GROUP BY query, next_query
+    SELECT x.query, y.query AS next_query, count(*) AS pairs
+    FROM st
+    JOIN searches x ON x.file_id = st.file_id AND x.line = st.line
+    JOIN searches y ON y.file_id = st.next_file_id AND y.line = st.next_line
+    WHERE y.query <> x.query
+    GROUP BY x.query, y.query
 ), a_only AS (
     SELECT p.query, p.next_query, t.term FROM p
     JOIN query_terms t ON t.index_id = $index_id AND t.query = p.query
@@ -207,6 +206,25 @@ WITH s AS (
 )
 SELECT n.file_id, n.line, n.who || '#' || n.k, b.is_bot
 FROM n JOIN b ON b.who = n.who AND b.k = n.k;
+
+-- name: steps_fill_simple
+-- The steps of the stand-in sessions (see sql/schema/009_search_steps.sql): consecutive searches
+-- of one session that is not a bot's, by time, file and line, whose queries differ, at most
+-- $max_gap_us microseconds apart. Reads searches, search_sessions; writes search_steps.
+-- $max_gap_us: longest step kept (querygap.sessions.STEP_GAP_SECONDS)
+INSERT INTO search_steps
+WITH s AS (
+    SELECT x.file_id, x.line, x.query, epoch_us(x.searched_at) AS at_us, ss.session_id
+    FROM searches x JOIN search_sessions ss ON ss.file_id = x.file_id AND ss.line = x.line
+    WHERE NOT ss.is_bot
+), seq AS (
+    SELECT file_id, line, query, at_us,
+           lead(file_id) OVER w AS next_file_id, lead(line) OVER w AS next_line,
+           lead(query) OVER w AS next_query, lead(at_us) OVER w AS next_us
+    FROM s WINDOW w AS (PARTITION BY session_id ORDER BY at_us, file_id, line)
+)
+SELECT file_id, line, next_file_id, next_line, at_us, next_us - at_us
+FROM seq WHERE next_query IS NOT NULL AND next_query <> query AND next_us - at_us <= $max_gap_us;
 
 -- name: sessions_count
 -- Rows of search_sessions.

@@ -2,11 +2,14 @@
 -- The stage rebuilds its tables from searches, so a rerun gives the same rows.
 
 -- name: sessions_clear
--- Forget the previous build of the session stage (search_sessions, session_traffic).
+-- Forget the previous build of the session stage (search_sessions, session_traffic, search_steps).
 DELETE FROM search_sessions;
 
 -- name: sessions_clear_traffic
 DELETE FROM session_traffic;
+
+-- name: sessions_clear_steps
+DELETE FROM search_steps;
 
 -- name: sessions_actors
 -- Number every session key and every user key of a search without a session key (from 0), so
@@ -18,11 +21,12 @@ FROM (SELECT DISTINCT CASE WHEN session_key IS NOT NULL THEN 's' ELSE 'u' END AS
       FROM searches WHERE session_key IS NOT NULL OR user_key IS NOT NULL);
 
 -- name: sessions_rows
--- Every search with its actor number (-1 with neither key) and time in microseconds since the
--- epoch, sorted by actor, time, file and line: the order querygap.session_split walks.
+-- Every search with its actor number (-1 with neither key), time in microseconds since the
+-- epoch and a 64-bit hash of its query (to tell consecutive searches of different queries
+-- apart), sorted by actor, time, file and line: the order querygap.session_split walks.
 -- Reads searches, session_actors.
 SELECT coalesce(a.actor, -1)::BIGINT AS actor, coalesce(a.kind = 'u', false) AS is_user,
-       epoch_us(s.searched_at)::BIGINT AS at_us, s.file_id, s.line
+       epoch_us(s.searched_at)::BIGINT AS at_us, s.file_id, s.line, hash(s.query) AS query_hash
 FROM searches s
 LEFT JOIN session_actors a
   ON a.kind = CASE WHEN s.session_key IS NOT NULL THEN 's' ELSE 'u' END
@@ -78,6 +82,18 @@ FROM session_named;
 INSERT INTO search_sessions
 SELECT r.file_id, r.line, n.session_id, n.verdict = 'bot'
 FROM session_rows r JOIN session_named n ON n.session = r.session;
+
+-- name: sessions_steps
+-- The steps of the sessions that are not a bot's. Reads the registered frame session_steps (one
+-- row per pair of consecutive searches of one session whose query hashes differ, at most
+-- querygap.sessions.STEP_GAP_SECONDS apart: session, file_id, line, next_file_id, next_line,
+-- searched_us, gap_us) and session_named; writes
+-- search_steps. A pair of different queries with equal 64-bit hashes (about one in 10^19) would
+-- be taken for a repeat and left out.
+INSERT INTO search_steps
+SELECT st.file_id, st.line, st.next_file_id, st.next_line, st.searched_us, st.gap_us
+FROM session_steps st JOIN session_named n ON n.session = st.session
+WHERE n.verdict <> 'bot';
 
 -- name: sessions_drop_actors
 -- The stage's temporary tables, no longer needed.

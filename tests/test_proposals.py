@@ -17,13 +17,14 @@ from typer.testing import CliRunner
 from querygap.analyzer import analyze
 from querygap.cli import app
 from querygap.decisions import Decision, parse_rules, store_decisions
-from querygap.errors import InputError
+from querygap.errors import ConfigError, InputError
 from querygap.logload import LoadOptions, load_log
 from querygap.nearmiss import edit_distance, stems
 from querygap.pageload import ContentOptions, load_content
 from querygap.proposal_files import md_text
-from querygap.proposals import propose, rewrite
+from querygap.proposals import ProposalSettings, propose, rewrite
 from querygap.review import run_review
+from querygap.sessions import STEP_GAP_SECONDS
 from querygap.settings import ReviewSettings
 from querygap.simple_sessions import fill_simple_sessions
 from querygap.windows import iso_week
@@ -233,6 +234,12 @@ def test_md_url_autolinks_plain_addresses_only() -> None:
     assert md_url("https://help.example.org/a-b.html") == "<https://help.example.org/a-b.html>"
     assert md_url("javascript:alert(1)") == "javascript:alert\\(1\\)"
     assert md_url("https://x.example/<b>") == "https://x.example/&lt;b&gt;"
+
+
+def test_a_reformulation_window_longer_than_the_kept_steps_is_refused() -> None:
+    settings = ProposalSettings(max_gap_seconds=STEP_GAP_SECONDS + 1)
+    with pytest.raises(ConfigError, match="keeps steps at most"):
+        propose(connect(None), "2026-W46", settings)
 
 
 def test_rewrite_replaces_splits_and_joins() -> None:

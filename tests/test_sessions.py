@@ -7,12 +7,18 @@ from datetime import UTC, datetime, timedelta
 from pathlib import Path
 
 import duckdb
+import numpy as np
 import pandas as pd
 import pytest
 
 from querygap.demo import DEMO_DIR, run_demo
 from querygap.errors import ConfigError
-from querygap.sessions import SessionSettings, build_sessions, validate_sessions
+from querygap.sessions import (
+    STEP_GAP_SECONDS,
+    SessionSettings,
+    build_sessions,
+    validate_sessions,
+)
 from querygap.workspace import connect, run
 
 T0 = datetime(2026, 11, 9, 8, 0, tzinfo=UTC)
@@ -112,6 +118,61 @@ def test_burst_is_a_bot_and_a_person_is_not(conn: duckdb.DuckDBPyConnection) -> 
     assert summary.loc["bot", "searches"] == 300
     flagged = conn.execute("SELECT count(*) FROM search_sessions WHERE is_bot").fetchall()[0][0]
     assert flagged == 300
+
+
+def steps_of(conn: duckdb.DuckDBPyConnection) -> list[tuple[int, int, float]]:
+    """(line, next line, gap in seconds) of every stored step, by line."""
+    rows = conn.execute(
+        "SELECT line, next_line, gap_us / 1e6 FROM search_steps ORDER BY line"
+    ).fetchall()
+    return [(int(a), int(b), float(g)) for a, b, g in rows]
+
+
+def test_steps_skip_repeats_bots_and_session_ends(conn: duckdb.DuckDBPyConnection) -> None:
+    rows = [  # lines 2.. in this order
+        {"at": 0, "user": "u1", "query": "a"},
+        {"at": 10, "user": "u1", "query": "a"},  # a repeat: the step starts here
+        {"at": 25, "user": "u1", "query": "b"},
+        {"at": 25, "user": "u1", "query": "c"},  # same time: file order decides
+        {"at": 25 + 31 * 60, "user": "u1", "query": "d"},  # a new session: no step to it
+        {"at": 30, "session": "s1", "query": "a"},
+        {"at": 90, "session": "s1", "query": "e"},
+        {"at": 95, "query": "f"},  # no key: a session alone
+        {"at": 90 + STEP_GAP_SECONDS + 1, "session": "s1", "query": "g"},  # too late a step
+    ]
+    rows += [{"at": 200 + 1.5 * i, "user": "scraper", "query": f"w{i}"} for i in range(300)]
+    add_searches(conn, rows)
+    build_sessions(conn)
+    assert steps_of(conn) == [(3, 4, 15.0), (4, 5, 0.0), (7, 8, 60.0)]
+
+
+def test_steps_match_their_sql_definition(conn: duckdb.DuckDBPyConnection) -> None:
+    # Seeded random traffic: user keys, session keys and keyless searches, repeats, ties in
+    # time and a bot. The stage's compiled steps must equal the SQL window definition that the
+    # stand-in sessions use (sql/propose.sql steps_fill_simple) on the sessions it built.
+    rng = np.random.default_rng(7)
+    n = 3000
+    kind = rng.integers(0, 3, n)
+    rows = [
+        {
+            "at": float(rng.integers(0, 20_000)),
+            "query": f"q{rng.integers(0, 6)}",
+            "user": f"u{rng.integers(0, 40)}" if kind[i] == 0 else None,
+            "session": f"s{rng.integers(0, 40)}" if kind[i] == 1 else None,
+        }
+        for i in range(n)
+    ]
+    rows += [{"at": 1.0 * i, "user": "scraper", "query": f"w{i % 3}"} for i in range(200)]
+    add_searches(conn, rows)
+    build_sessions(conn)
+    assert conn.execute("SELECT count(*) FROM search_sessions WHERE is_bot").fetchall()[0][0]
+    cols = "file_id, line, next_file_id, next_line, searched_us, gap_us"
+    stage = conn.execute(f"SELECT {cols} FROM search_steps ORDER BY ALL").fetchall()
+    conn.execute("DELETE FROM search_steps")
+    run(conn, "steps_fill_simple", {"max_gap_us": STEP_GAP_SECONDS * 1_000_000})
+    reference = conn.execute(f"SELECT {cols} FROM search_steps ORDER BY ALL").fetchall()
+    assert len(stage) > 500
+    assert stage == reference
 
 
 def test_each_bot_criterion_alone(conn: duckdb.DuckDBPyConnection) -> None:
