@@ -16,6 +16,7 @@ from querygap.clustering import (
     cluster_queries,
     deletion_strings,
     gram_matrix,
+    nearest_words,
     similar_pairs,
     spelling_pairs,
 )
@@ -128,6 +129,35 @@ def test_spelling_pairs_match_brute_force() -> None:
                 want.add((i, j))
     assert set(zip(a.tolist(), b.tolist(), strict=True)) == want
     assert want  # the check compares something
+
+
+def test_nearest_words_match_brute_force() -> None:
+    # Reference: every (term, word) pair compared with rapidfuzz's OSA distance; the nearest
+    # word within edit_limit of the term (3+ letters, not the term itself), then higher df,
+    # then alphabetical. No deletion string is left out (max_block above every group).
+    rng = np.random.default_rng(11)
+    letters = np.array(list("abcdeh"))
+
+    def draw(n: int) -> np.ndarray:
+        found = {"".join(rng.choice(letters, rng.integers(2, 9))) for _ in range(n)}
+        return np.array(sorted(found), dtype=object)
+
+    terms, words = draw(300), draw(600)
+    vocab = pd.DataFrame({"term": words, "df": rng.integers(1, 5, len(words))})
+    best, examined = nearest_words(terms, vocab, max_block=10**6)
+    want = np.full(len(terms), -1)
+    for i, t in enumerate(terms):
+        limit = 0 if len(t) < 3 else (1 if len(t) < 6 else 2)
+        near = [
+            (OSA.distance(t, w), -int(vocab["df"][j]), w, j)
+            for j, w in enumerate(words)
+            if len(w) >= 3 and 1 <= OSA.distance(t, w) <= limit
+        ]
+        if near:
+            want[i] = min(near)[3]
+    assert (want >= 0).sum() > 50  # the check compares something
+    assert best.tolist() == want.tolist()
+    assert examined >= (want >= 0).sum()
 
 
 def test_similar_pairs_match_the_full_product() -> None:
