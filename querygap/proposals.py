@@ -347,7 +347,7 @@ def propose(
     occ = sequences_of(failing["query"], index)
     joins = join_candidates(occ, vocab)
     words = joins["term"].str.split(" ", n=1, expand=True)
-    unmatched = set(failing_terms["term"])
+    unmatched = set(failing_terms["term"].unique())  # 2M rows, some 100k terms
     cands = candidates_for(eligible, vocab, occ, subs, contexts, settings, joins)
     if not joins.empty:
         keep = words[0].isin(unmatched) | words[1].isin(unmatched)
