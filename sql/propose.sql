@@ -92,6 +92,9 @@ WITH qt AS (
     SELECT a.query, a.status, a.searches, a.term, a.df, a.in_best,
            string_agg(b.term, ' ' ORDER BY b.term) AS context
     FROM qt a JOIN qt b ON b.query = a.query AND b.term <> a.term
+    -- only the rows the two sides below read: an ok query's content terms, a failing query's
+    -- unmatched terms (9.4 s -> 6.9 s at M, where 77% of the queries fail)
+    WHERE (a.status = 'ok' AND a.df > 0) OR (a.status <> 'ok' AND (a.df = 0 OR NOT a.in_best))
     GROUP BY a.query, a.status, a.searches, a.term, a.df, a.in_best
 ), ok_ctx AS (
     SELECT * FROM ctx WHERE status = 'ok' AND df > 0
