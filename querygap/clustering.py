@@ -16,7 +16,8 @@ comparison of every query with every other:
    adjacent letters) is within the limit of the shorter term: none below 3 letters, 1 for 3 to 5, 2
    for longer (common practice, no source). Candidates come from deletion neighbourhoods: two terms
    within distance d share a string obtained from each by at most d deletions, so only terms
-   sharing such a string are compared. A deletion string shared by more than ``max_block`` terms is
+   sharing such a string are compared (each string as a 64-bit hash,
+   :mod:`querygap.edit_neighbours`). A deletion string shared by more than ``max_block`` terms is
    not used (it is a short string, shared by words that are no typos of one another).
 3. **Similar text.** Character 3-grams within words (as scikit-learn's ``TfidfVectorizer`` with
    ``analyzer='char_wb'`` forms them, computed here with sparse products) weighted by tf-idf,
@@ -42,6 +43,8 @@ from rapidfuzz.process import cpdist
 from scipy import sparse
 from scipy.sparse.csgraph import connected_components
 
+from querygap.analyzer import _ranks  # 0..n-1 per size, concatenated
+from querygap.edit_neighbours import deletion_keys
 from querygap.errors import ConfigError
 from querygap.windows import Window
 from querygap.workspace import frame, run
@@ -117,34 +120,28 @@ def key_terms(n_queries: int, searches: np.ndarray, terms: pd.DataFrame) -> np.n
     return keys
 
 
-def deletion_strings(terms: np.ndarray) -> pd.DataFrame:
-    """Every string made by deleting up to ``edit_limit(len)`` letters of each term.
+def deletion_keys_of(terms: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """The deletion keys of each term with up to ``edit_limit(len)`` letters deleted (the term
+    itself among them): 64-bit hashes of the remaining letters
+    (:func:`querygap.edit_neighbours.deletion_keys`), as (key, term index) sorted by key then
+    term, each pair once."""
+    parts = list(deletion_keys(terms, edit_limit(_lengths(terms))))
+    if not parts:
+        return np.empty(0, np.uint64), np.empty(0, np.int64)
+    key = np.concatenate([k for k, _, _ in parts])
+    owner = np.concatenate([o for _, o, _ in parts]).astype(np.int64)
+    order = np.lexsort((owner, key))
+    key, owner = key[order], owner[order]
+    first = np.r_[True, (key[1:] != key[:-1]) | (owner[1:] != owner[:-1])]
+    return key[first], owner[first]
 
-    Returns columns tid (index into ``terms``) and variant; the term itself is one of its variants.
-    Vectorised per term length: the terms of one length are a character matrix, and each set of
-    deleted positions is one column selection on it.
-    """
-    parts = [pd.DataFrame({"tid": np.arange(len(terms)), "variant": terms.astype(object)})]
-    lengths = np.fromiter((len(t) for t in terms), dtype=np.int64, count=len(terms))
-    for length in np.unique(lengths):
-        limit = int(edit_limit(np.array([length]))[0])
-        if limit == 0:
-            continue
-        tids = np.flatnonzero(lengths == length)
-        chars = np.array(terms[tids].tolist(), dtype=f"<U{length}").view("<U1")
-        chars = chars.reshape(len(tids), length)
-        keep_sets = [np.delete(np.arange(length), [i]) for i in range(length)]
-        if limit >= 2:
-            keep_sets += [
-                np.delete(np.arange(length), [i, j])
-                for i in range(length)
-                for j in range(i + 1, length)
-            ]
-        for keep in keep_sets:
-            width = len(keep)
-            joined = np.ascontiguousarray(chars[:, keep]).view(f"<U{width}").ravel()
-            parts.append(pd.DataFrame({"tid": tids, "variant": joined.astype(object)}))
-    return pd.concat(parts, ignore_index=True).drop_duplicates()
+
+def _uncrowded(key: np.ndarray, owner: np.ndarray, max_block: int) -> tuple[np.ndarray, ...]:
+    """The (key, owner) pairs of the keys that at most ``max_block`` terms share."""
+    starts = np.flatnonzero(np.r_[True, key[1:] != key[:-1]])
+    sizes = np.diff(np.r_[starts, key.size])
+    keep = np.repeat(sizes <= max_block, sizes)
+    return key[keep], owner[keep]
 
 
 def pair_limit(length: np.ndarray) -> np.ndarray:
@@ -171,17 +168,21 @@ def near_pairs(
     other = left if right is None else right
     if len(left) == 0 or len(other) == 0:
         return empty, empty, empty, 0
-    dels_l = deletion_strings(left)
-    dels_r = dels_l if right is None else deletion_strings(right)
-    size_l = dels_l.groupby("variant")["tid"].transform("size")
-    size_r = dels_r.groupby("variant")["tid"].transform("size")
-    dels_l = dels_l[size_l <= max_block]
-    dels_r = dels_r[size_r <= max_block]
-    pairs = dels_l.merge(dels_r, on="variant", suffixes=("_a", "_b"))
+    key_l, tid_l = _uncrowded(*deletion_keys_of(left), max_block)
+    key_r, tid_r = (
+        (key_l, tid_l) if right is None else _uncrowded(*deletion_keys_of(right), max_block)
+    )
+    # Every left key meets the right terms holding the same key (both sides sorted by key).
+    lo = np.searchsorted(key_r, key_l, side="left")
+    count = np.searchsorted(key_r, key_l, side="right") - lo
+    a = np.repeat(tid_l, count)
+    b = tid_r[np.repeat(lo, count) + _ranks(count)]
     if right is None:
-        pairs = pairs[pairs["tid_a"] < pairs["tid_b"]]
-    pairs = pairs.drop_duplicates(["tid_a", "tid_b"])
-    a, b = pairs["tid_a"].to_numpy(np.int64), pairs["tid_b"].to_numpy(np.int64)
+        a, b = a[a < b], b[a < b]
+    n_other = len(other)
+    pair = np.sort(a * n_other + b)  # np.unique (numpy 2.4) hashes: 60 times slower here
+    pair = pair[np.r_[True, pair[1:] != pair[:-1]]] if pair.size else pair
+    a, b = pair // n_other, pair % n_other
     if not len(a):
         return empty, empty, empty, 0
     dist = cpdist(left[a].tolist(), other[b].tolist(), scorer=OSA.distance, workers=1)

@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import json
+from itertools import combinations
 from pathlib import Path
 
 import duckdb
@@ -14,13 +15,14 @@ from rapidfuzz.distance import OSA
 from querygap.clustering import (
     ClusterSettings,
     cluster_queries,
-    deletion_strings,
+    deletion_keys_of,
     gram_matrix,
     nearest_words,
     similar_pairs,
     spelling_pairs,
 )
 from querygap.demo import DEMO_DIR, run_demo
+from querygap.edit_neighbours import deletion_keys
 from querygap.workspace import connect
 
 VOCAB = pd.DataFrame(
@@ -102,12 +104,22 @@ def test_shared_key_term_joins_and_labels_follow_volume() -> None:
     assert list(result.labels) == [1, 1, 1, 0]
 
 
-def test_deletion_strings_cover_the_edit_limit() -> None:
-    dels = deletion_strings(np.array(["abc", "abcdef"], dtype=object))
-    got = set(dels[dels["tid"] == 0]["variant"])
-    assert got == {"abc", "bc", "ac", "ab"}
-    # 6 letters: up to two deletions, C(6,1) + C(6,2) distinct position sets, plus the term
-    assert len(dels[dels["tid"] == 1]) == 1 + 6 + 15
+def test_deletion_keys_cover_the_edit_limit() -> None:
+    # A term's keys are the keys of the strings left by deleting up to edit_limit letters: for
+    # "abc" (one edit) the term and its 3 one-letter deletions; for "abcdef" (two edits)
+    # 1 + C(6, 1) + C(6, 2) strings, all distinct.
+    for term, limit in (("abc", 1), ("abcdef", 2)):
+        strings = {
+            "".join(np.delete(np.array(list(term)), list(gone)))
+            for k in range(limit + 1)
+            for gone in combinations(range(len(term)), k)
+        }
+        whole = np.array(sorted(strings), dtype=object)
+        want = set(next(deletion_keys(whole, np.zeros(len(whole), np.int64)))[0].tolist())
+        key, owner = deletion_keys_of(np.array([term], dtype=object))
+        assert set(key.tolist()) == want
+        assert len(key) == len(strings) and set(owner.tolist()) == {0}
+    assert len(want) == 1 + 6 + 15
 
 
 def test_spelling_pairs_match_brute_force() -> None:
