@@ -195,6 +195,13 @@ def _ranks(sizes: np.ndarray) -> np.ndarray:
     return np.arange(total) - np.repeat(np.cumsum(sizes) - sizes, sizes)
 
 
+def _distinct(values: np.ndarray) -> np.ndarray:
+    """The distinct values, ascending, by a sort: ``np.unique`` of a plain int64 array hashes in
+    numpy 2.4 and took 4.7 s for 3M values against 0.08 s sorted."""
+    out = np.sort(values)
+    return out[np.r_[True, out[1:] != out[:-1]]] if out.size else out
+
+
 def analyze_codes(texts: Texts, settings: AnalyzerSettings | None = None) -> Analyzed:
     """Analyze many texts at once, returning term codes (see :class:`Analyzed`).
 

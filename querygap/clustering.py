@@ -43,7 +43,7 @@ from rapidfuzz.process import cpdist
 from scipy import sparse
 from scipy.sparse.csgraph import connected_components
 
-from querygap.analyzer import _ranks  # 0..n-1 per size, concatenated
+from querygap.analyzer import _distinct, _ranks
 from querygap.edit_neighbours import deletion_keys
 from querygap.errors import ConfigError
 from querygap.windows import Window
@@ -180,8 +180,7 @@ def near_pairs(
     if right is None:
         a, b = a[a < b], b[a < b]
     n_other = len(other)
-    pair = np.sort(a * n_other + b)  # np.unique (numpy 2.4) hashes: 60 times slower here
-    pair = pair[np.r_[True, pair[1:] != pair[:-1]]] if pair.size else pair
+    pair = _distinct(a * n_other + b)
     a, b = pair // n_other, pair % n_other
     if not len(a):
         return empty, empty, empty, 0

@@ -22,6 +22,8 @@ from collections.abc import Iterator
 
 import numpy as np
 
+from querygap.analyzer import _distinct
+
 #: Most deletions a key may have (the largest edit limit of the spelling candidates).
 MAX_DELETIONS = 2
 _SEED = 20250303
@@ -132,8 +134,7 @@ def candidate_pairs(
         cols.append(np.repeat(kept[owner[maybe[hit]]], count)[fits])
     if not rows:
         return none, none
-    flat = np.sort(np.concatenate(rows) * len(choices) + np.concatenate(cols))
+    flat = _distinct(np.concatenate(rows) * len(choices) + np.concatenate(cols))
     if not flat.size:
         return none, none
-    flat = flat[np.r_[True, flat[1:] != flat[:-1]]]
     return flat // len(choices), flat % len(choices)

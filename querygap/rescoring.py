@@ -22,7 +22,7 @@ from collections.abc import Callable
 import numpy as np
 import pandas as pd
 
-from querygap.analyzer import _ranks, analyze_series  # 0..n-1 per size, concatenated
+from querygap.analyzer import _distinct, _ranks, analyze_series
 from querygap.indexing import Index
 from querygap.scoring import is_ok, ok_terms, terms_of_counts
 
@@ -111,8 +111,7 @@ def _pairs(seq: pd.DataFrame, cand: pd.DataFrame) -> pd.DataFrame:
     twice = seq["repeats"].to_numpy(bool)[entry]
     if twice.any():
         n_rows = int(rows.max()) + 1
-        key = np.sort(at_cand[twice] * n_rows + rows[twice])  # np.unique hashes: far slower
-        key = key[np.r_[True, key[1:] != key[:-1]]]
+        key = _distinct(at_cand[twice] * n_rows + rows[twice])
         at_cand = np.concatenate([at_cand[~twice], key // n_rows])
         rows = np.concatenate([rows[~twice], key % n_rows])
     return pd.DataFrame({"cand": cand["cand"].to_numpy()[at_cand], "row": rows})

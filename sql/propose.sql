@@ -43,7 +43,8 @@ ORDER BY v.term_id;
 -- $max_gap_seconds: longest gap between the two searches
 WITH st AS (
     SELECT * FROM search_steps
-    WHERE searched_us >= epoch_us($start::TIMESTAMPTZ) AND searched_us + gap_us < epoch_us($end::TIMESTAMPTZ)
+    WHERE searched_us >= epoch_us($start::TIMESTAMPTZ)
+      AND searched_us + gap_us < epoch_us($end::TIMESTAMPTZ)
       AND gap_us <= $max_gap_seconds * 1000000
 ), p AS (
     SELECT x.query, y.query AS next_query, count(*) AS pairs

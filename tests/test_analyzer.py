@@ -4,6 +4,7 @@ from __future__ import annotations
 
 from pathlib import Path
 
+import numpy as np
 import pandas as pd
 import pyarrow as pa
 import pytest
@@ -11,7 +12,7 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 
 from querygap import analyzer
-from querygap.analyzer import AnalyzerSettings, analyze, analyze_series
+from querygap.analyzer import AnalyzerSettings, _distinct, analyze, analyze_series
 
 
 @pytest.mark.parametrize(
@@ -117,3 +118,11 @@ def test_bulk_analysis_equals_tokenizing_each_whole_text(texts: list[str], stem:
     assert list(coded.terms[coded.codes]) == list(long["term"])
     for i, text in enumerate(texts):
         assert list(long.loc[long["row"] == i, "term"]) == _whole_text_terms(text, chosen)
+
+
+def test_distinct_equals_numpy_unique() -> None:
+    # Reference: numpy's np.unique (sorted distinct values), on repeats, negatives and empty.
+    rng = np.random.default_rng(5)
+    for values in (rng.integers(-50, 50, 2000), rng.integers(0, 2**62, 500), np.empty(0, int)):
+        assert np.array_equal(_distinct(values), np.unique(values))
+    assert _distinct(rng.integers(0, 3, 100)).tolist() == [0, 1, 2]
