@@ -12,8 +12,8 @@ with unknown terms weighing ``unknown_term_idf`` (the idf of df = 1). A query wh
 idf 0 (every page has them) gets coverage 1 when its best page has them all.
 
 The product and the top-k selection are done by :func:`querygap.scoring_kernel.top_k_scores`:
-a compiled term-at-a-time kernel when numba is installed, chunked sparse products with a
-vectorised sort otherwise; never a Python loop over queries.
+a compiled kernel that reads postings by weight falling when numba is installed, chunked sparse
+products with a vectorised sort otherwise; never a Python loop over queries.
 """
 
 from __future__ import annotations

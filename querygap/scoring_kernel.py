@@ -1,49 +1,46 @@
 """The exact top-k kernel behind the score stage: every query against every page, best ``k`` kept.
 
 For a query q (a sparse unit vector, CSR row) and the postings of each term t (the pages d with
-weight ``w(t, d) > 0``, a CSR row of the transposed page matrix), the score of page d is
+weight ``w(t, d) > 0``), the score of page d is
 
     score(q, d) = sum over terms t of q: q(t) * w(t, d)
 
-computed term at a time into a dense accumulator of one float64 per page. Only the pages a query
-touched are read back (and reset), so the cost per query is the number of postings of its terms,
-not the number of pages. The ``k`` best pages are kept while reading back (a sorted array of
-length ``k``), ordered by score falling, ties by the lower page row; pages scoring exactly 0 are
-not kept.
+Each term's postings are kept twice: by page row (for look-ups) and by weight falling (the
+impact order of Anh & Moffat, "Pruned query evaluation using pre-computed impacts", SIGIR
+2006). A query is evaluated in three steps, with a dense accumulator of one float64 per page of
+which only the pages touched are read back and reset, so the cost follows the postings read,
+not the number of pages:
 
-Terms are renumbered rarest first, and each query's terms are summed in that order on both paths,
+1. Read the terms' postings by weight falling, always from the term whose next posting can add
+   the most, in blocks that double per term. A page not touched yet scores at most
+   ``B = sum over terms t of q(t) w_next(t)``, ``w_next(t)`` being the weight of t's next
+   unread posting (the threshold of Fagin, Lotem & Naor's threshold algorithm, "Optimal
+   aggregation algorithms for middleware", PODS 2001; cited from memory). Theta, the k-th best
+   partial score so far (a lower bound on the final k-th best, since weights are >= 0), is
+   taken from the pages that reached it, kept in a short list. Reading stops once ``B`` is
+   under theta: no page not touched yet can enter the top k.
+2. The touched pages that can still reach theta (``acc + B >= theta``) are kept and get their
+   weights of the unread postings, always from the term that can add the most: either looked
+   up (a dense row for the commonest terms, else a binary search in the rows-sorted postings),
+   when that costs less than the term's unread postings, or by reading on in the term by
+   weight, in doubling blocks, adding only to kept pages. As ``B`` falls and theta rises, the
+   pages that fall out of reach are dropped (a pass over the kept pages whenever the work
+   since the last one reaches half their number, and before each look-up).
+3. The pages left within the slack of theta are summed again over the query's terms in order,
+   rarest first, and the ``k`` best kept, ordered by score falling, ties by the lower page row;
+   pages scoring exactly 0 are not kept.
+
+Every bound carries a relative slack of 1e-9, far above the rounding of the sums, so the result
+is exactly the exhaustive one. Terms are renumbered rarest first and step 3 sums in that order,
 so the compiled kernel and the numpy path agree bit for bit (and with ``weights @ pages.T`` on
-the renumbered matrices).
+the renumbered matrices); tests check this and against scikit-learn's cosine. At size M (1M
+queries against 100k pages, 10.3 billion postings touched, top 5) the kernel reads 0.96 billion
+postings and looks up 0.41 billion pages, against 5.6 and 0.37 billion for the term-at-a-time
+kernel with a max-score stop and impact cut it replaced, in 0.45 to 0.5 of its time (paired
+runs; see DEVELOPERS.md).
 
-Max-score stop (the max_score bound of Turtle & Flood, 1995, in the term-at-a-time "continue"
-form of Moffat & Zobel, 1996; both cited from memory). Let ``m(t)`` be term t's largest page
-weight. After a query's first j terms, a page not touched yet can gain at most
-``R_j = sum over the later terms of q(t) m(t)``. Once ``R_j`` is below theta, the k-th best
-partial score so far (a lower bound on the final k-th best, since weights are >= 0), no such page
-can enter the top k: the later terms only update the touched pages that can still reach theta
-(``acc + R_j >= theta``), looked up in a dense row (the commonest terms) or by binary search or a
-merge pass in the term's sorted postings. Every bound carries a relative slack of 1e-9, far above
-the rounding of the sums, so the result is exactly the exhaustive one; tests check it against
-scikit-learn's cosine and against the numpy path. The long postings of common terms come last
-in each query, so they are the ones skipped. The stop is tried only where the later terms'
-postings outnumber the pages touched so far ``STOP_WORTH`` times: elsewhere the look-ups cost
-more than the sequential reads they save. At size M it skips 27% of the postings touched
-(trying everywhere skipped 54%), and the kernel runs in about 0.77 of the time it takes trying
-everywhere (see ``STOP_WORTH``).
-
-Impact cut (the impact-sorted postings of Anh & Moffat, "Pruned query evaluation using
-pre-computed impacts", SIGIR 2006, pp. 372-379; here kept exact). Each term's
-postings are also kept by weight falling. A page not touched before term t ends at most
-``q(t) w(t, d) + R_t`` (``R_t``: the most the later terms can add), so of t's postings only a
-prefix by weight can bring in a new page that reaches theta; the touched pages get their
-weight of t by look-up (a dense row or a binary search). The prefix is read in doubling steps,
-theta re-taken between them. It is tried only where the prefix read and the look-ups cost under
-half the list (``CUT_GAIN``); it cuts the postings read at size M by a further quarter (7.5 to
-5.6 billion of 10.3 billion touched) and the kernel's time to about 0.85.
-
-A floor (pages scoring under it are not wanted) is a bound from the first term on: theta is at
-least the floor, so a query whose terms cannot reach it reads nothing, and one whose later terms
-cannot lift a page to it stops there.
+A floor (pages scoring under it are not wanted) is theta's least value: a query whose terms
+cannot reach it reads nothing, and reading stops as soon as ``B`` is under it.
 
 Queries run in an order that puts those sharing their commonest terms next to each other, so
 the long postings are read from cache. With numba installed the kernel is compiled (cached on
@@ -129,38 +126,9 @@ def top_k_numpy(
 
 
 SAFETY = 1.0 + 1e-9  # slack on every bound: float sums of <= 10^6 terms err by far less
-# The stop is tried only when the later terms have at least this many postings per page touched
-# so far: trying costs a pass over the touched pages, and each page kept then costs a random
-# look-up per later term, against a sequential read per posting skipped. Measured at size M
-# (1.1M queries, 2 threads, paired runs), as a share of the time of the kernel before (which
-# tried everywhere and appended touched pages with a branch): branch-free and trying everywhere
-# 0.87-0.94; with this gate at 3: 0.63-0.68, 4: 0.69-0.70, 8: 0.69-0.75, 16: 0.68-0.70; never
-# trying: 0.80-0.85.
-STOP_WORTH = 4
-# Impact cut (see ``_read_by_impact``): tried on lists of at least CUT_MIN postings, and only
-# while the postings it may read plus the look-ups it costs stay under 1/CUT_GAIN of the list.
-# Measured at size M (1M queries, 2 threads, paired runs of the kernel alone): 0.83-0.87 of the
-# time without it; CUT_GAIN 3 and CUT_MIN 256 measured the same within noise.
-CUT_MIN = 64
-CUT_GAIN = 2
-
-
-def _kth_largest(acc: np.ndarray, touched: np.ndarray, n: int, k: int, buf: np.ndarray) -> float:
-    """The ``k``-th largest of ``acc[touched[:n]]`` (0 when fewer than ``k`` are positive)."""
-    n_buf = 0
-    for i in range(n):
-        v = acc[touched[i]]
-        if n_buf == k and v <= buf[k - 1]:
-            continue
-        pos = n_buf if n_buf < k else k - 1
-        while pos > 0 and buf[pos - 1] < v:
-            if pos < k:
-                buf[pos] = buf[pos - 1]
-            pos -= 1
-        buf[pos] = v
-        if n_buf < k:
-            n_buf += 1
-    return buf[k - 1] if n_buf == k else 0.0
+# A kept page's binary search costs about this many postings read in sequence per step (the
+# choice between looking kept pages up in a term and reading on in its postings).
+LOOK_UP_COST = 4
 
 
 def _first_at_least(p_idx: np.ndarray, lo: int, hi: int, d: int) -> int:
@@ -175,80 +143,129 @@ def _first_at_least(p_idx: np.ndarray, lo: int, hi: int, d: int) -> int:
     return lo
 
 
-def _read_by_impact(
+def _steps(length: int) -> int:
+    """Steps of a binary search over ``length`` entries: the least s >= 1 with 2^s >= length."""
+    s = 1
+    while (1 << s) < length:
+        s += 1
+    return s
+
+
+def _insert(buf: np.ndarray, n_buf: int, k: int, v: float) -> int:
+    """Put ``v`` into ``buf[:n_buf]``, the ``k`` largest so far kept falling; the new fill."""
+    if n_buf == k and v <= buf[k - 1]:
+        return n_buf
+    pos = n_buf if n_buf < k else k - 1
+    while pos > 0 and buf[pos - 1] < v:
+        if pos < k:
+            buf[pos] = buf[pos - 1]
+        pos -= 1
+    buf[pos] = v
+    return n_buf + 1 if n_buf < k else k
+
+
+def _theta_of_hot(
     acc: np.ndarray,
-    touched: np.ndarray,
-    n_touched: int,
+    hot: np.ndarray,
+    n_hot: int,
     k: int,
     buf: np.ndarray,
-    floor: float,
+    mark: np.ndarray,
+    theta: float,
+) -> tuple[float, int]:
+    """Raise ``theta`` to the ``k``-th largest score of the distinct pages in ``hot[:n_hot]``,
+    then keep in ``hot`` (once each) only the pages within the slack of it: (theta, kept).
+
+    ``hot`` may hold a page more than once; ``mark`` (all False before and after) counts each
+    page once.
+    """
+    n_buf = 0
+    for i in range(n_hot):
+        d = hot[i]
+        if mark[d]:
+            continue
+        mark[d] = True
+        n_buf = _insert(buf, n_buf, k, acc[d])
+    if n_buf == k and buf[k - 1] > theta:
+        theta = buf[k - 1]
+    n_keep = 0
+    for i in range(n_hot):
+        d = hot[i]
+        if mark[d]:
+            mark[d] = False
+            if acc[d] * SAFETY >= theta:
+                hot[n_keep] = d
+                n_keep += 1
+    return theta, n_keep
+
+
+def _prune(
+    acc: np.ndarray, kept: np.ndarray, n: int, rest: float, theta: float, k: int, buf: np.ndarray
+) -> tuple[int, float]:
+    """Keep the pages of ``kept[:n]`` that can still reach ``theta`` (``acc + rest``), in
+    their order, and reset the others' ``acc``; then raise theta to the ``k``-th largest kept
+    score: (kept, theta)."""
+    n_keep = 0
+    n_buf = 0
+    for i in range(n):
+        d = kept[i]
+        v = acc[d]
+        if (v + rest) * SAFETY >= theta:
+            kept[n_keep] = d
+            n_keep += 1
+            n_buf = _insert(buf, n_buf, k, v)
+        else:
+            acc[d] = 0.0
+    if n_buf == k and buf[k - 1] > theta:
+        theta = buf[k - 1]
+    return n_keep, theta
+
+
+def _look_up_unread(
+    acc: np.ndarray,
+    kept: np.ndarray,
+    n_kept: int,
+    is_sorted: bool,
     wq: float,
-    rest: float,
     lo: int,
     hi: int,
-    budget: int,
-    i_idx: np.ndarray,
-    i_val: np.ndarray,
+    p0: int,
     p_idx: np.ndarray,
     p_val: np.ndarray,
+    i_idx: np.ndarray,
+    i_val: np.ndarray,
     row: np.ndarray,
-) -> tuple[int, int, int]:
-    """Add term t's postings ``lo:hi`` to the touched pages and to the pages that can still
-    enter the top k: (pages touched, postings read, pages looked up).
+) -> bool:
+    """Add to each kept page its weight of a term whose postings ``lo:p0`` (by weight falling)
+    were read and ``p0:hi`` were not; returns True (``kept`` is now sorted when it had to be).
 
-    A page not touched yet ends at most ``wq w(t, d) + rest``. Its postings are read by weight
-    falling (``i_idx``/``i_val``) while that bound reaches theta, the k-th best partial score
-    (at least ``floor``; re-taken as the read doubles); the pages touched before then get
-    their weight of t unless the read already gave it: from the dense ``row`` when it has one
-    entry or more, else by binary search in the rows-sorted postings. When the read would
-    pass ``budget`` postings the whole list is read instead and nothing is looked up.
+    From the term's dense ``row`` when it has one (``row.size`` > 0), else by a binary search
+    per page, from the last hit, in the rows-sorted postings (``kept`` sorted first). A
+    looked-up weight was read already when it comes before the last read posting in (weight
+    falling, row rising) order.
     """
-    n_before = n_touched
-    theta = floor
-    if n_touched >= k:
-        theta = max(theta, _kth_largest(acc, touched, n_touched, k, buf))
-    pos = lo
-    step = k
-    while True:
-        first = pos  # first posting (weights falling) whose bound is under theta
-        right = hi
-        while first < right:
-            mid = (first + right) >> 1
-            if (wq * i_val[mid] + rest) * SAFETY >= theta:
-                first = mid + 1
-            else:
-                right = mid
-        end = min(first, pos + step)
-        whole = end - lo > budget
-        if whole:
-            end = hi
-        for p in range(pos, end):
-            d = i_idx[p]
-            v = acc[d]
-            touched[n_touched] = d
-            n_touched += v == 0.0
-            acc[d] = v + wq * i_val[p]
-        pos = end
-        if whole:
-            return n_touched, hi - lo, 0
-        if pos == first:
-            break
-        step *= 2
-        if n_touched >= k:
-            theta = max(theta, _kth_largest(acc, touched, n_touched, k, buf))
-    # Read: the postings before (v_cut, d_cut) in (weight falling, row rising) order.
-    v_cut = i_val[pos - 1] if pos > lo else np.inf
-    d_cut = i_idx[pos - 1] if pos > lo else -1
-    for i in range(n_before):
-        d = touched[i]
-        if row.size:
+    v_cut = i_val[p0 - 1] if p0 > lo else np.inf
+    d_cut = i_idx[p0 - 1] if p0 > lo else -1
+    if row.size:
+        for i in range(n_kept):
+            d = kept[i]
             v = row[d]
-        else:
-            left = _first_at_least(p_idx, lo, hi, d)
-            v = p_val[left] if left < hi and p_idx[left] == d else 0.0
-        if v > 0.0 and (v < v_cut or (v == v_cut and d > d_cut)):
-            acc[d] += wq * v
-    return n_touched, pos - lo, n_before
+            if v > 0.0 and (v < v_cut or (v == v_cut and d > d_cut)):
+                acc[d] += wq * v
+        return is_sorted
+    if not is_sorted:
+        kept[:n_kept].sort()
+    at = lo
+    for i in range(n_kept):
+        d = kept[i]
+        at = _first_at_least(p_idx, at, hi, d)
+        if at == hi:
+            break
+        if p_idx[at] == d:
+            v = p_val[at]
+            if v < v_cut or (v == v_cut and d > d_cut):
+                acc[d] += wq * v
+    return True
 
 
 def _kernel_py(
@@ -260,7 +277,6 @@ def _kernel_py(
     p_val: np.ndarray,
     i_idx: np.ndarray,
     i_val: np.ndarray,
-    max_w: np.ndarray,
     dense_slot: np.ndarray,
     dense: np.ndarray,
     order: np.ndarray,
@@ -278,150 +294,185 @@ def _kernel_py(
     among those scoring ``floor`` or more.
 
     Queries are taken in the sequence ``order``, chunk ``chunk_order[i]`` as the i-th parallel
-    task; ``dense[dense_slot[t]]`` is term t's weights
-    as a dense row when ``dense_slot[t] >= 0``; ``i_idx``/``i_val`` are the postings of each
-    term by weight falling (:func:`impact_order`). ``stats[c]`` gets (postings scanned,
-    look-ups, queries that stopped early, impact cuts) of chunk c.
+    task; ``p_ptr``/``p_idx``/``p_val`` are the postings of each term by page row rising,
+    ``i_idx``/``i_val`` the same by weight falling (:func:`impact_order`); ``dense[dense_slot[t]]``
+    is term t's weights as a dense row when ``dense_slot[t] >= 0``. ``stats[c]`` gets (postings
+    read, pages looked up, queries that stopped bringing in new pages, pages summed again,
+    postings read after the stop, pages looked up by binary search) of chunk c.
     """
     n_q = q_ptr.size - 1
     n_chunks = (n_q + chunk - 1) // chunk
     for ci in prange(n_chunks):
         c = chunk_order[ci]
-        acc = np.zeros(n_docs, np.float64)
+        acc = np.zeros(n_docs, np.float64)  # acc > 0 marks a touched page (weights > 0)
         touched = np.empty(n_docs + 1, np.int32)
+        # Pages that reached theta, some more than once: after each block at most n_docs
+        # distinct ones (or under k), and a block adds at most n_docs.
+        hot = np.empty(2 * n_docs + k + 1, np.int32)
+        mark = np.zeros(n_docs, np.bool_)
         top_d = np.empty(k, np.int64)
         top_v = np.empty(k, np.float64)
-        rest = np.empty(max_terms, np.float64)
-        later = np.empty(max_terms, np.int64)
+        pos = np.empty(max_terms, np.int64)  # each term's next unread posting by weight
+        cur = np.empty(max_terms, np.float64)  # q(t) times that posting's weight (0: all read)
+        done = np.empty(max_terms, np.bool_)  # every kept page has its weight of t
         no_row = np.empty(0, np.float64)
         scanned = 0
         looked_up = 0
         stopped = 0
-        cut = 0
+        summed = 0
+        read_rest = 0
+        searched = 0
         stop = min(n_q, (c + 1) * chunk)
         for qq in range(c * chunk, stop):
             q = order[qq]
             a = q_ptr[q]
             n_t = q_ptr[q + 1] - a
-            total = 0.0
-            later_len = 0
-            for jj in range(n_t - 1, -1, -1):  # rest[jj]: the most the terms after jj can add
-                rest[jj] = total  # later[jj]: their postings
-                later[jj] = later_len
-                total += q_val[a + jj] * max_w[q_idx[a + jj]]
-                later_len += p_ptr[q_idx[a + jj] + 1] - p_ptr[q_idx[a + jj]]
-            if total * SAFETY < floor:  # no page can reach the floor
+            bound = 0.0  # the most a page not touched yet can score
+            for j in range(n_t):
+                t = q_idx[a + j]
+                pos[j] = p_ptr[t]
+                done[j] = p_ptr[t + 1] == p_ptr[t]
+                cur[j] = 0.0 if done[j] else q_val[a + j] * i_val[p_ptr[t]]
+                bound += cur[j]
+            if bound * SAFETY < floor:  # no page can reach the floor
                 continue
+            # 1. Read the terms' postings by weight falling, always from the term that can add
+            # the most, in blocks that double, until no page not touched yet can reach theta.
             n_touched = 0
-            pruned = False  # True once no page not touched yet can reach the top k
-            reached = 0.0  # the most any page can have so far
-            for jj in range(n_t):
-                t = q_idx[a + jj]
-                wq = q_val[a + jj]
+            n_hot = 0
+            theta = floor
+            while bound * SAFETY >= theta:
+                best = -1
+                most = 0.0
+                for j in range(n_t):
+                    if cur[j] > most:
+                        most = cur[j]
+                        best = j
+                if best < 0:
+                    break
+                t = q_idx[a + best]
+                wq = q_val[a + best]
                 lo = p_ptr[t]
                 hi = p_ptr[t + 1]
-                if not pruned:
+                p0 = pos[best]
+                end = min(hi, p0 + max(k, p0 - lo))
+                bar = theta / SAFETY
+                for p in range(p0, end):
+                    d = i_idx[p]
+                    v = acc[d]
+                    touched[n_touched] = d  # branch-free appends: kept only when new / hot
+                    n_touched += v == 0.0
+                    v += wq * i_val[p]
+                    acc[d] = v
+                    hot[n_hot] = d
+                    n_hot += v >= bar
+                scanned += end - p0
+                pos[best] = end
+                done[best] = end == hi
+                cur[best] = 0.0 if done[best] else wq * i_val[end]
+                bound = 0.0
+                for j in range(n_t):
+                    bound += cur[j]
+                if n_hot >= k:
+                    theta, n_hot = _theta_of_hot(acc, hot, n_hot, k, top_v, mark, theta)
+            if bound > 0.0:
+                # 2. Some postings are unread: keep the touched pages that can still reach
+                # theta and give them their weights of the unread terms, the term that can add
+                # the most first, dropping those that fall out of reach as theta rises.
+                stopped += 1
+                n_touched, theta = _prune(acc, touched, n_touched, bound, theta, k, top_v)
+                is_sorted = False
+                since = 0  # postings read and pages looked up since the last prune
+                while bound > 0.0:
+                    best = -1
+                    most = -1.0
+                    for j in range(n_t):
+                        if not done[j] and cur[j] > most:
+                            most = cur[j]
+                            best = j
+                    t = q_idx[a + best]
+                    wq = q_val[a + best]
+                    lo = p_ptr[t]
+                    hi = p_ptr[t + 1]
+                    p0 = pos[best]
                     slot = dense_slot[t]
-                    budget = 0
-                    if hi - lo >= CUT_MIN:  # the impact cut, when its look-ups cost little
-                        steps = 1
-                        while (1 << steps) < hi - lo:
-                            steps += 1
-                        budget = (hi - lo) // CUT_GAIN - n_touched * (1 if slot >= 0 else steps)
-                    if budget > 0:
-                        row = dense[slot] if slot >= 0 else no_row
-                        n_touched, read, looked = _read_by_impact(
-                            acc, touched, n_touched, k, top_v, floor, wq, rest[jj], lo, hi,
-                            budget, i_idx, i_val, p_idx, p_val, row,
+                    per_page = 1 if slot >= 0 else LOOK_UP_COST * _steps(hi - lo)
+                    if per_page * n_touched < hi - p0 and since > 0:  # prune before looking up
+                        n_touched, theta = _prune(acc, touched, n_touched, bound, theta, k, top_v)
+                        since = 0
+                    cost = per_page * n_touched
+                    if cost < hi - p0:  # look the kept pages up in the term
+                        is_sorted = _look_up_unread(
+                            acc, touched, n_touched, is_sorted, wq, lo, hi, p0, p_idx, p_val,
+                            i_idx, i_val, dense[slot] if slot >= 0 else no_row,
                         )  # fmt: skip
-                        scanned += read
-                        looked_up += looked
-                        cut += read < hi - lo
-                    else:
-                        for p in range(lo, hi):  # acc > 0 marks a touched page (weights > 0)
-                            d = p_idx[p]
+                        looked_up += n_touched
+                        searched += n_touched if slot < 0 else 0
+                        done[best] = True
+                        cur[best] = 0.0
+                        since += n_touched
+                    else:  # read on by weight, for the kept pages only (acc > 0 marks them)
+                        end = min(hi, p0 + max(k, p0 - lo))
+                        for p in range(p0, end):
+                            d = i_idx[p]
                             v = acc[d]
-                            touched[n_touched] = d  # branch-free append: kept only when new
-                            n_touched += v == 0.0
-                            acc[d] = v + wq * p_val[p]
-                        scanned += hi - lo
-                    reached += wq * max_w[t]
-                    if jj == n_t - 1 or later[jj] < STOP_WORTH * n_touched:
-                        continue  # reading the rest costs less than trying to stop
-                    bound = rest[jj] * SAFETY
-                    theta = floor
-                    if n_touched >= k and bound < reached:  # else the k-th best <= the bound
-                        theta = max(theta, _kth_largest(acc, touched, n_touched, k, top_v))
-                    if not bound < theta:
-                        continue
-                    # Max-score: a page not touched yet ends below theta, the k-th best so far.
-                    # Keep the touched pages that can still reach theta, sorted by row.
-                    n_keep = 0
-                    for i in range(n_touched):
-                        d = touched[i]
-                        if (acc[d] + rest[jj]) * SAFETY >= theta:
-                            touched[n_keep] = d
-                            n_keep += 1
-                        else:
-                            acc[d] = 0.0
-                    n_touched = n_keep
-                    touched[:n_touched].sort()
-                    pruned = True
-                    stopped += 1
-                    continue
-                # Only the kept pages: read their weights of term t.
-                slot = dense_slot[t]
-                looked_up += n_touched
-                if slot >= 0:
-                    row = dense[slot]
-                    for i in range(n_touched):
-                        d = touched[i]
-                        v = row[d]
-                        if v > 0.0:
-                            acc[d] += wq * v
-                    continue
-                length = hi - lo
-                steps = 1
-                while (1 << steps) < length:
-                    steps += 1
-                pos = lo
-                if 4 * n_touched * steps < length:  # binary search from the last hit
-                    for i in range(n_touched):
-                        d = touched[i]
-                        pos = _first_at_least(p_idx, pos, hi, d)
-                        if pos == hi:
-                            break
-                        if p_idx[pos] == d:
-                            acc[d] += wq * p_val[pos]
-                else:  # one merge pass
-                    for i in range(n_touched):
-                        d = touched[i]
-                        while pos < hi and p_idx[pos] < d:
-                            pos += 1
-                        if pos == hi:
-                            break
-                        if p_idx[pos] == d:
-                            acc[d] += wq * p_val[pos]
-                    scanned += pos - lo
-            n_top = 0
-            for i in range(n_touched):
-                d = touched[i]
-                v = acc[d]
+                            if v > 0.0:
+                                acc[d] = v + wq * i_val[p]
+                        scanned += end - p0
+                        read_rest += end - p0
+                        since += end - p0
+                        pos[best] = end
+                        done[best] = end == hi
+                        cur[best] = 0.0 if done[best] else wq * i_val[end]
+                    bound = 0.0
+                    for j in range(n_t):
+                        bound += cur[j]
+                    if bound == 0.0 or 2 * since >= n_touched:  # a pass costs n_touched
+                        n_touched, theta = _prune(acc, touched, n_touched, bound, theta, k, top_v)
+                        since = 0
+                n_hot = n_touched  # every page left has its whole score
+                hot[:n_hot] = touched[:n_hot]
+                n_touched = 0
+            else:
+                theta, n_hot = _theta_of_hot(acc, hot, n_hot, k, top_v, mark, theta)
+            # 3. The pages within the slack of theta are summed again, over the query's terms
+            # in order (the order of the numpy path), and the k best kept; all else is reset.
+            n_keep = 0
+            for i in range(n_hot):
+                d = hot[i]
+                if acc[d] * SAFETY >= theta:
+                    hot[n_keep] = d
+                    n_keep += 1
                 acc[d] = 0.0
+            for i in range(n_touched):
+                acc[touched[i]] = 0.0
+            summed += n_keep
+            n_top = 0
+            for i in range(n_keep):
+                d = hot[i]
+                v = 0.0
+                for j in range(n_t):
+                    t = q_idx[a + j]
+                    slot = dense_slot[t]
+                    if slot >= 0:
+                        w = dense[slot, d]
+                    else:
+                        at = _first_at_least(p_idx, p_ptr[t], p_ptr[t + 1], d)
+                        w = p_val[at] if at < p_ptr[t + 1] and p_idx[at] == d else 0.0
+                    if w > 0.0:
+                        v += q_val[a + j] * w
                 if v <= 0.0 or v < floor:
                     continue
                 if n_top == k and (v < top_v[k - 1] or (v == top_v[k - 1] and d > top_d[k - 1])):
                     continue
-                pos = n_top if n_top < k else k - 1
-                while pos > 0 and (
-                    top_v[pos - 1] < v or (top_v[pos - 1] == v and top_d[pos - 1] > d)
-                ):
-                    if pos < k:
-                        top_v[pos] = top_v[pos - 1]
-                        top_d[pos] = top_d[pos - 1]
-                    pos -= 1
-                top_v[pos] = v
-                top_d[pos] = d
+                at = n_top if n_top < k else k - 1
+                while at > 0 and (top_v[at - 1] < v or (top_v[at - 1] == v and top_d[at - 1] > d)):
+                    if at < k:
+                        top_v[at] = top_v[at - 1]
+                        top_d[at] = top_d[at - 1]
+                    at -= 1
+                top_v[at] = v
+                top_d[at] = d
                 if n_top < k:
                     n_top += 1
             for i in range(n_top):
@@ -430,13 +481,18 @@ def _kernel_py(
         stats[c, 0] = scanned
         stats[c, 1] = looked_up
         stats[c, 2] = stopped
-        stats[c, 3] = cut
+        stats[c, 3] = summed
+        stats[c, 4] = read_rest
+        stats[c, 5] = searched
 
 
 if HAVE_NUMBA:
-    _kth_largest = numba.njit(cache=True, nogil=True)(_kth_largest)
     _first_at_least = numba.njit(cache=True, nogil=True, inline="always")(_first_at_least)
-    _read_by_impact = numba.njit(cache=True, nogil=True)(_read_by_impact)
+    _steps = numba.njit(cache=True, nogil=True, inline="always")(_steps)
+    _insert = numba.njit(cache=True, nogil=True)(_insert)
+    _theta_of_hot = numba.njit(cache=True, nogil=True)(_theta_of_hot)
+    _prune = numba.njit(cache=True, nogil=True)(_prune)
+    _look_up_unread = numba.njit(cache=True, nogil=True)(_look_up_unread)
     _kernel = numba.njit(parallel=True, cache=True, nogil=True)(_kernel_py)
 else:  # pragma: no cover
     _kernel = None
@@ -490,13 +546,13 @@ def top_k_compiled(
     counts: dict[str, int] | None = None,
     floor: float = 0.0,
 ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-    """The compiled term-at-a-time path; same arguments and result as :func:`top_k_numpy`.
+    """The compiled path; same arguments and result as :func:`top_k_numpy`.
 
-    The max-score stop pays off when each query's terms come rarest first (:func:`term_order`);
-    the result is exact in any order. ``counts``, when given, receives ``scanned`` (postings
-    read), ``looked_up`` (kept pages looked up in a later term), ``stopped`` (queries whose
-    later terms only updated kept pages) and ``cut`` (terms whose postings were read only as
-    far as the impact cut).
+    ``counts``, when given, receives ``scanned`` (postings read), ``looked_up`` (pages given a
+    term's weight by dense row or binary search; ``searched`` of them by binary search),
+    ``stopped`` (queries that stopped bringing in new pages before the end of their postings),
+    ``read_rest`` (postings read after that stop, for the kept pages only) and ``summed_again``
+    (pages summed again in term order, the candidates within the slack of the k-th best).
     """
     if _kernel is None:
         raise RuntimeError("numba is not installed; use top_k_numpy")
@@ -504,7 +560,7 @@ def top_k_compiled(
     out_doc = np.full((n, k), -1, np.int64)
     out_val = np.zeros((n, k), np.float64)
     n_chunks = max(1, (n + chunk - 1) // chunk)
-    stats = np.zeros((n_chunks, 4), np.int64)
+    stats = np.zeros((n_chunks, 6), np.int64)
     if isinstance(postings, Postings):
         ready = postings
     else:
@@ -522,7 +578,6 @@ def top_k_compiled(
         postings.data.astype(np.float64),
         ready.impact_rows,
         ready.impact_weights,
-        ready.max_w,
         ready.dense_slot,
         ready.dense,
         locality_order(weights),
@@ -539,22 +594,11 @@ def top_k_compiled(
         stats,
     )
     if counts is not None:
-        scanned, looked_up, stopped, cut = stats.sum(axis=0)
-        counts.update(
-            scanned=int(scanned), looked_up=int(looked_up), stopped=int(stopped), cut=int(cut)
-        )
+        names = ("scanned", "looked_up", "stopped", "summed_again", "read_rest", "searched")
+        counts.update(zip(names, (int(x) for x in stats.sum(axis=0)), strict=True))
     keep = out_doc >= 0
     rows_out = np.broadcast_to(np.arange(n, dtype=np.int64)[:, None], (n, k))[keep]
     return rows_out, out_doc[keep], out_val[keep]
-
-
-def largest_weight(postings: sp.csr_matrix) -> np.ndarray:
-    """Each term's largest page weight (0 for a term no page has): the max-score bound."""
-    out = np.zeros(postings.shape[0])
-    rows = np.flatnonzero(np.diff(postings.indptr))
-    if rows.size:
-        out[rows] = np.maximum.reduceat(postings.data, postings.indptr[rows])
-    return out
 
 
 def term_order(postings: sp.csr_matrix) -> np.ndarray:
@@ -574,14 +618,13 @@ class Postings:
     """Page postings made ready for scoring once, then reused by every call on the same index.
 
     ``matrix`` holds one row per term renumbered by ``order`` (:func:`term_order`), rows sorted;
-    ``max_w``, ``dense_slot`` and ``dense`` are its largest weights and dense rows
-    (:func:`dense_rows`); ``impact_rows``/``impact_weights`` the same postings by weight
-    falling within each term (:func:`impact_order`).
+    ``dense_slot`` and ``dense`` are its dense rows (:func:`dense_rows`);
+    ``impact_rows``/``impact_weights`` the same postings by weight falling within each term
+    (:func:`impact_order`).
     """
 
     order: np.ndarray
     matrix: sp.csr_matrix
-    max_w: np.ndarray
     dense_slot: np.ndarray
     dense: np.ndarray
     impact_rows: np.ndarray
@@ -632,7 +675,7 @@ def _made_ready(matrix: sp.csr_matrix, order: np.ndarray | None = None) -> Posti
     by_rows, by_weights = impact_order(matrix)
     if order is None:
         order = np.arange(matrix.shape[0])
-    return Postings(order, matrix, largest_weight(matrix), slot, rows, by_rows, by_weights)
+    return Postings(order, matrix, slot, rows, by_rows, by_weights)
 
 
 def prepare_postings(postings: sp.csr_matrix) -> Postings:
@@ -657,10 +700,10 @@ def top_k_scores(
 ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """Each query's ``k`` best pages: (row, page row, score), rows ascending, scores falling.
 
-    Only pages scoring ``floor`` or more are kept (a query may keep none). A floor is a
-    max-score bound from the start: a query's terms stop reading new pages as soon as the most
-    its later terms can add is under it, so asking only for pages that can pass a threshold is
-    much cheaper than the whole top k.
+    Only pages scoring ``floor`` or more are kept (a query may keep none). A floor is theta's
+    least value: a query stops reading new pages as soon as the most a page not touched yet can
+    score is under it, so asking only for pages that can pass a threshold is much cheaper than
+    the whole top k.
 
     Both paths first renumber the terms by :func:`term_order`, so each score is summed over the
     query's terms rarest first and the two paths agree bit for bit. ``use_compiled=None`` takes

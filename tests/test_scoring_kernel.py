@@ -105,7 +105,7 @@ def zipf_problem(seed: int, n_q: int = 400, n_t: int = 300, n_d: int = 600):
     """Pages whose term frequencies fall off like Zipf's law, queries of 1-5 such terms.
 
     Common terms sit on most pages with small weights, rare ones on few with large weights:
-    the shape where the max-score stop skips the common terms' postings.
+    the shape where reading by weight stops early in the common terms' postings.
     """
     rng = np.random.default_rng(seed)
     p_term = 1 / np.arange(1, n_t + 1)
@@ -126,7 +126,7 @@ def zipf_problem(seed: int, n_q: int = 400, n_t: int = 300, n_d: int = 600):
 
 @needs_numba
 @pytest.mark.parametrize("k", [1, 5])
-def test_the_max_score_stop_skips_postings_and_stays_exact(k: int) -> None:
+def test_the_stop_skips_postings_and_stays_exact(k: int) -> None:
     q, d = zipf_problem(11)
     counts: dict[str, int] = {}
     rows, docs, vals = top_k_scores(q, d.T.tocsr(), k, use_compiled=True, counts=counts)
@@ -170,7 +170,11 @@ def assert_top_k_is_the_cosine(q, d, rows, docs, vals, k: int, floor: float = 0.
 @needs_numba
 @pytest.mark.parametrize("dense_rows", [True, False])
 @pytest.mark.parametrize(("k", "floor"), [(1, 0.0), (5, 0.0), (1, 0.3), (5, 0.2)])
-def test_the_impact_cut_reads_less_and_stays_exact(dense_rows: bool, k: int, floor: float) -> None:
+def test_each_way_of_finishing_the_kept_pages_stays_exact(
+    dense_rows: bool, k: int, floor: float
+) -> None:
+    # After the stop, kept pages get their unread weights by dense row, by reading the rest of
+    # a term's postings, or by binary search: each way must be taken here, and stay exact.
     q, d = zipf_problem(17, n_q=300, n_d=2000)
     ready = scoring_kernel.prepare_postings(d.T.tocsr())
     if not dense_rows:
@@ -178,8 +182,14 @@ def test_the_impact_cut_reads_less_and_stays_exact(dense_rows: bool, k: int, flo
     counts: dict[str, int] = {}
     rows, docs, vals = top_k_scores(q, ready, k, use_compiled=True, counts=counts, floor=floor)
     touched = int(np.diff(d.T.tocsr().indptr)[q.indices].sum())
-    assert counts["cut"] > 0
+    assert counts["stopped"] > 0
     assert counts["scanned"] < touched
+    assert counts["read_rest"] > 0
+    if dense_rows:
+        assert counts["looked_up"] > counts["searched"]
+    else:
+        assert counts["looked_up"] == counts["searched"] > 0
+    assert counts["summed_again"] >= np.unique(rows).size
     assert_top_k_is_the_cosine(q, d, rows, docs, vals, k, floor)
     b = top_k_scores(q, d.T.tocsr(), k, use_compiled=False, floor=floor)
     for x, y in zip((rows, docs, vals), b, strict=True):
@@ -188,14 +198,14 @@ def test_the_impact_cut_reads_less_and_stays_exact(dense_rows: bool, k: int, flo
 
 @needs_numba
 @pytest.mark.parametrize("k", [1, 3, 5])
-def test_the_impact_cut_breaks_ties_by_the_lower_page(k: int) -> None:
-    # Every page four times over: each weight ties with three others, so the cut often falls
+def test_reading_by_weight_breaks_ties_by_the_lower_page(k: int) -> None:
+    # Every page four times over: each weight ties with three others, so a stop often falls
     # inside a run of equal weights and the lower page rows must still win.
     q, d = zipf_problem(19, n_q=300, n_d=500)
     d = sp.csr_matrix(sp.vstack([d] * 4))
     counts: dict[str, int] = {}
     rows, docs, vals = top_k_scores(q, d.T.tocsr(), k, use_compiled=True, counts=counts)
-    assert counts["cut"] > 0
+    assert counts["stopped"] > 0
     b = top_k_scores(q, d.T.tocsr(), k, use_compiled=False)
     for x, y in zip((rows, docs, vals), b, strict=True):
         np.testing.assert_array_equal(x, y)
@@ -274,3 +284,48 @@ def test_ok_queries_agree_with_the_full_scores(min_score: float, min_coverage: f
     got = ok_queries(queries, index, min_score, min_coverage)
     assert 0 < full.sum() < len(queries) or min_score == 0.0
     np.testing.assert_array_equal(got, full.to_numpy())
+
+
+@needs_numba
+@pytest.mark.parametrize("k", [1, 5, 250])
+def test_the_kernel_stays_in_its_arrays_where_every_page_ties(
+    monkeypatch: pytest.MonkeyPatch, k: int
+) -> None:
+    # 200 identical pages of 12 terms: every page ties at every step, so every page stays
+    # within the slack of theta and the list of pages that reached it is at its longest. The
+    # kernel runs as plain Python here, where numpy checks every index (compiled code does
+    # not). k = 250 asks for more pages than there are.
+    pages = normalize(sp.csr_matrix(np.tile(np.arange(1.0, 13.0), (200, 1))))
+    rng = np.random.default_rng(23)
+    query = sp.lil_matrix((40, 12))
+    for row in range(40):
+        query[row, rng.choice(12, size=rng.integers(1, 13), replace=False)] = rng.random() + 0.1
+    query = normalize(sp.csr_matrix(query))
+    want = top_k_scores(query, pages.T.tocsr(), k, use_compiled=False)
+    monkeypatch.setattr(scoring_kernel, "_kernel", scoring_kernel._kernel.py_func)
+    got = top_k_scores(query, pages.T.tocsr(), k, use_compiled=True)
+    for x, y in zip(got, want, strict=True):
+        np.testing.assert_array_equal(x, y)
+    # Reference: scikit-learn's cosine; all pages tie, so each query keeps the lowest rows.
+    dense = cosine_similarity(query, pages)
+    assert (np.bincount(got[0], minlength=40) == min(k, 200)).all()
+    for row in range(40):
+        np.testing.assert_array_equal(got[1][got[0] == row], np.arange(min(k, 200)))
+        np.testing.assert_allclose(got[2][got[0] == row], dense[row, 0], rtol=1e-12)
+
+
+@needs_numba
+@pytest.mark.parametrize(("k", "floor"), [(1, 0.0), (5, 0.0), (3, 0.3)])
+def test_the_kernel_stays_in_its_arrays_on_zipf_pages(
+    monkeypatch: pytest.MonkeyPatch, k: int, floor: float
+) -> None:
+    # As above, plain Python with every index checked, on the shape the stop is made for.
+    q, d = zipf_problem(29, n_q=120, n_d=800)
+    want = top_k_scores(q, d.T.tocsr(), k, use_compiled=True, floor=floor)
+    monkeypatch.setattr(scoring_kernel, "_kernel", scoring_kernel._kernel.py_func)
+    counts: dict[str, int] = {}
+    got = top_k_scores(q, d.T.tocsr(), k, use_compiled=True, floor=floor, counts=counts)
+    assert counts["stopped"] > 0
+    for x, y in zip(got, want, strict=True):
+        np.testing.assert_array_equal(x, y)
+    assert_top_k_is_the_cosine(q, d, *got, k, floor)
