@@ -118,7 +118,11 @@ def measure_terms(
     if has_best.any():
         keys = index.term_keys
         probe = best_doc_row[qrow[has_best]] * len(index.terms) + term_ids[has_best]
-        pos = np.minimum(np.searchsorted(keys, probe), keys.size - 1)
+        # Searched in sorted order: the binary searches then walk the keys (14.5M at size M)
+        # forwards, about 10x faster than in query order.
+        by_key = np.argsort(probe, kind="stable")
+        pos = np.empty_like(by_key)
+        pos[by_key] = np.minimum(np.searchsorted(keys, probe[by_key]), keys.size - 1)
         in_best[has_best] = keys[pos] == probe
     unk_idf = unknown_term_idf(index.n_docs, index.settings.weighting)
     idf = np.where(term_ids >= 0, index.idf[np.maximum(term_ids, 0)], unk_idf)

@@ -14,7 +14,7 @@ from sklearn.preprocessing import normalize
 
 from querygap import scoring_kernel
 from querygap.indexing import Index
-from querygap.scoring import score_queries
+from querygap.scoring import measure_terms, query_terms, score_queries
 from querygap.scoring_kernel import top_k_scores
 
 needs_numba = pytest.mark.skipif(not scoring_kernel.HAVE_NUMBA, reason="numba is not installed")
@@ -94,6 +94,26 @@ def test_score_queries_gives_the_same_tables_on_both_paths() -> None:
     assert best.loc["leak", "best_doc"] == "c"
     assert best.loc["sofa", "best_score"] == 0
     assert pd.isna(best.loc["sofa", "best_doc"])
+
+
+def test_terms_on_the_best_page_match_the_page_vectors() -> None:
+    # Reference: the index's own page-by-term matrix (scipy), entry by entry: a query term is
+    # "in_best" exactly when its best page has a weight for it. Queries in shuffled order, so
+    # the (page, term) look-ups do not come sorted.
+    index = small_index()
+    words = ["water", "meter", "bill", "pay", "leak", "street", "reading", "sofa", "online"]
+    rng = np.random.default_rng(31)
+    texts = [" ".join(rng.choice(words, size=rng.integers(1, 5))) for _ in range(300)]
+    queries = pd.Series(texts).drop_duplicates().sample(frac=1, random_state=3)
+    measured = measure_terms(query_terms(queries.reset_index(drop=True), index), index)
+    qt = query_terms(queries.reset_index(drop=True), index)
+    rows = qt.long["row"].to_numpy()
+    term_ids = qt.long["term_id"].to_numpy()
+    best = measured.best_doc_row[rows]
+    dense = index.vectors.toarray()
+    want = (term_ids >= 0) & (best >= 0) & (dense[np.maximum(best, 0), np.maximum(term_ids, 0)] > 0)
+    np.testing.assert_array_equal(measured.in_best, want)
+    assert want.any() and not want.all()
 
 
 def test_the_compiled_path_is_installed() -> None:
