@@ -13,6 +13,7 @@ from querygap.nearmiss import (
     variant_candidates,
 )
 from querygap.proposal_settings import ProposalSettings
+from querygap.string_sets import in_set
 
 VARIANT_PRIOR = 0.7
 
@@ -50,9 +51,11 @@ def candidates_for(
     )
     scored = scored.rename(columns={"term_from": "term", "term_to": "suggestion"})
     in_vocab = pd.Index(vocab["term"])
-    scored = scored[scored["term"].isin(terms["term"]) & scored["suggestion"].isin(in_vocab)]
+    scored = scored[
+        in_set(scored["term"], terms["term"]) & in_set(scored["suggestion"], vocab["term"])
+    ]
     ctx = contexts.rename(columns={"term_from": "term", "term_to": "suggestion"})
-    ctx = ctx[ctx["term"].isin(unknown)][["term", "suggestion", "contexts"]]
+    ctx = ctx[in_set(ctx["term"], unknown)][["term", "suggestion", "contexts"]]
     cands = cands.merge(
         scored[["term", "suggestion", "n_ab", "g2"]], on=["term", "suggestion"], how="outer"
     )
