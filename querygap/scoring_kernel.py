@@ -268,6 +268,37 @@ def _look_up_unread(
     return True
 
 
+def _most_left(cur: np.ndarray, n_t: int) -> int:
+    """The term whose next unread posting can add the most (``cur`` largest, > 0); -1 when
+    every term is read or given."""
+    best = -1
+    most = 0.0
+    for j in range(n_t):
+        if cur[j] > most:
+            most = cur[j]
+            best = j
+    return best
+
+
+def _read_to(
+    pos: np.ndarray,
+    cur: np.ndarray,
+    n_t: int,
+    j: int,
+    end: int,
+    hi: int,
+    wq: float,
+    i_val: np.ndarray,
+) -> float:
+    """Mark term j's postings read up to ``end`` (of ``hi``); the new bound ``sum of cur``."""
+    pos[j] = end
+    cur[j] = 0.0 if end == hi else wq * i_val[end]
+    bound = 0.0
+    for i in range(n_t):
+        bound += cur[i]
+    return bound
+
+
 def _kernel_py(
     q_ptr: np.ndarray,
     q_idx: np.ndarray,
@@ -313,8 +344,7 @@ def _kernel_py(
         top_d = np.empty(k, np.int64)
         top_v = np.empty(k, np.float64)
         pos = np.empty(max_terms, np.int64)  # each term's next unread posting by weight
-        cur = np.empty(max_terms, np.float64)  # q(t) times that posting's weight (0: all read)
-        done = np.empty(max_terms, np.bool_)  # every kept page has its weight of t
+        cur = np.empty(max_terms, np.float64)  # q(t) times that posting's weight (0: read or given)
         no_row = np.empty(0, np.float64)
         scanned = 0
         looked_up = 0
@@ -331,8 +361,7 @@ def _kernel_py(
             for j in range(n_t):
                 t = q_idx[a + j]
                 pos[j] = p_ptr[t]
-                done[j] = p_ptr[t + 1] == p_ptr[t]
-                cur[j] = 0.0 if done[j] else q_val[a + j] * i_val[p_ptr[t]]
+                cur[j] = 0.0 if p_ptr[t + 1] == p_ptr[t] else q_val[a + j] * i_val[p_ptr[t]]
                 bound += cur[j]
             if bound * SAFETY < floor:  # no page can reach the floor
                 continue
@@ -342,12 +371,7 @@ def _kernel_py(
             n_hot = 0
             theta = floor
             while bound * SAFETY >= theta:
-                best = -1
-                most = 0.0
-                for j in range(n_t):
-                    if cur[j] > most:
-                        most = cur[j]
-                        best = j
+                best = _most_left(cur, n_t)
                 if best < 0:
                     break
                 t = q_idx[a + best]
@@ -367,12 +391,7 @@ def _kernel_py(
                     hot[n_hot] = d
                     n_hot += v >= bar
                 scanned += end - p0
-                pos[best] = end
-                done[best] = end == hi
-                cur[best] = 0.0 if done[best] else wq * i_val[end]
-                bound = 0.0
-                for j in range(n_t):
-                    bound += cur[j]
+                bound = _read_to(pos, cur, n_t, best, end, hi, wq, i_val)
                 if n_hot >= k:
                     theta, n_hot = _theta_of_hot(acc, hot, n_hot, k, top_v, mark, theta)
             if bound > 0.0:
@@ -384,12 +403,7 @@ def _kernel_py(
                 is_sorted = False
                 since = 0  # postings read and pages looked up since the last prune
                 while bound > 0.0:
-                    best = -1
-                    most = -1.0
-                    for j in range(n_t):
-                        if not done[j] and cur[j] > most:
-                            most = cur[j]
-                            best = j
+                    best = _most_left(cur, n_t)
                     t = q_idx[a + best]
                     wq = q_val[a + best]
                     lo = p_ptr[t]
@@ -408,9 +422,8 @@ def _kernel_py(
                         )  # fmt: skip
                         looked_up += n_touched
                         searched += n_touched if slot < 0 else 0
-                        done[best] = True
-                        cur[best] = 0.0
                         since += n_touched
+                        end = hi  # every kept page has its weight of the term now
                     else:  # read on by weight, for the kept pages only (acc > 0 marks them)
                         end = min(hi, p0 + max(k, p0 - lo))
                         for p in range(p0, end):
@@ -421,12 +434,7 @@ def _kernel_py(
                         scanned += end - p0
                         read_rest += end - p0
                         since += end - p0
-                        pos[best] = end
-                        done[best] = end == hi
-                        cur[best] = 0.0 if done[best] else wq * i_val[end]
-                    bound = 0.0
-                    for j in range(n_t):
-                        bound += cur[j]
+                    bound = _read_to(pos, cur, n_t, best, end, hi, wq, i_val)
                     if bound == 0.0 or 2 * since >= n_touched:  # a pass costs n_touched
                         n_touched, theta = _prune(acc, touched, n_touched, bound, theta, k, top_v)
                         since = 0
@@ -490,6 +498,8 @@ if HAVE_NUMBA:
     _first_at_least = numba.njit(cache=True, nogil=True, inline="always")(_first_at_least)
     _steps = numba.njit(cache=True, nogil=True, inline="always")(_steps)
     _insert = numba.njit(cache=True, nogil=True)(_insert)
+    _most_left = numba.njit(cache=True, nogil=True, inline="always")(_most_left)
+    _read_to = numba.njit(cache=True, nogil=True, inline="always")(_read_to)
     _theta_of_hot = numba.njit(cache=True, nogil=True)(_theta_of_hot)
     _prune = numba.njit(cache=True, nogil=True)(_prune)
     _look_up_unread = numba.njit(cache=True, nogil=True)(_look_up_unread)
