@@ -25,8 +25,6 @@ def in_set(column: pd.Series, members: pd.Series | pd.Index | Iterable[str | Non
     wanted = pa.array(members, from_pandas=True)
     if pa.types.is_null(values.type):
         values = values.cast(pa.string())
-    if len(wanted) == 0 or pa.types.is_null(wanted.type):
-        wanted = wanted.cast(values.type)
-    elif wanted.type != values.type:
+    if wanted.type != values.type:  # an empty or all-missing side is typed null
         wanted = wanted.cast(values.type)
     return np.asarray(pc.is_in(values, value_set=wanted).fill_null(False), dtype=bool)
