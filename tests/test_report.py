@@ -194,3 +194,25 @@ def test_later_stage_sections_show_the_stored_rows(demo: tuple[Path, Path]) -> N
     assert [r.css("td")[0].text() for r in rows] == [c[0] for c in clusters]
     assert len(tree.css("#proposals-table tbody tr")) == fixes > 0
     assert NOT_RUN not in tree.css_first("section#clusters").text()
+
+
+def test_daily_counts_match_the_searches_counted_by_pandas(demo: tuple[Path, Path]) -> None:
+    # Reference: pandas on the stored rows; day = floor((searched_at - window start) / 1 day),
+    # bot searches left out, each search counted under its query's status.
+    conn = connect(demo[0], read_only=True)
+    data = load_report_data(conn, "2026-W46")
+    rows = conn.execute(
+        "SELECT s.searched_at, q.status FROM searches s "
+        "JOIN review_queries q ON q.review_id = '2026-W46' AND q.query = s.query "
+        "LEFT JOIN search_sessions b ON b.file_id = s.file_id AND b.line = s.line "
+        "WHERE s.searched_at >= ? AND s.searched_at < ? AND NOT coalesce(b.is_bot, false)",
+        [data.start, data.end],
+    ).df()
+    conn.close()
+    at = pd.to_datetime(rows["searched_at"], utc=True)
+    day = ((at - pd.Timestamp(data.start)) // pd.Timedelta(days=1)).astype(int)
+    want = pd.crosstab(day, rows["status"]).reindex(range(len(data.daily)), fill_value=0)
+    assert len(rows) > 0 and want.to_numpy().sum() == data.daily["searches"].sum()
+    assert data.daily["zero"].tolist() == want.get("zero", 0 * want.iloc[:, 0]).tolist()
+    assert data.daily["low"].tolist() == want.get("low", 0 * want.iloc[:, 0]).tolist()
+    assert data.daily["searches"].tolist() == want.sum(axis=1).tolist()

@@ -248,7 +248,11 @@ def load_report_data(conn: duckdb.DuckDBPyConnection, review_id: str) -> ReportD
         index_id=str(review["index_id"]),
         totals=totals_of(conn, review_id),
         previous=totals_of(conn, previous_id) if previous_id else None,
-        daily=daily_rates(frame(conn, "report_daily", {"review_id": review_id}), start, days),
+        daily=daily_rates(
+            frame(conn, "report_daily", {"review_id": review_id, "start": start, "end": end}),
+            start,
+            days,
+        ),
         profile=profile,
         bands=band_rates(profile),
         failing=failing_queries(conn, review_id, str(review["index_id"])),
