@@ -41,7 +41,10 @@ are those of re-scoring every candidate. Since confidence <= prior:
   searches, is never convincing;
 - a context-only synonym of a term that has another convincing fix is never proposed, and one
   whose prior is under half the term's best confidence, or under its ``max_candidates``-th best,
-  can no longer be; they are re-scored best prior first, while they can still be proposed;
+  can no longer be; they are re-scored best prior first, while they can still be proposed,
+  and each one's queries most searched first, stopping as soon as rescuing every search left
+  could not lift its confidence to ``min_confidence`` (a context-only prior is under 0.5, so
+  such a synonym must rescue most of its searches: most stop after a few queries);
 - the rest count only through a content-gap topic's confidence (the highest over its terms'
   candidates): re-scored best prior first, only while their prior exceeds the topic's best,
   and each one's queries most searched first, stopping as soon as rescuing every search left
@@ -268,7 +271,34 @@ def measure_what_counts(
         floor = pd.concat([0.5 * best, last], axis=1).max(axis=1)
         return bound >= floor.reindex(cands["term"]).fillna(-np.inf).to_numpy()
 
-    in_rounds(cands["term"], ctx_wanted, may_rank)
+    exact = pd.Series(True, index=cands.index)
+
+    def rescore_while_convincing(mask: pd.Series) -> None:
+        """Re-score, stopping a candidate's queries as soon as even rescuing all the rest could
+        not lift its confidence to min_confidence (it can then never be convincing)."""
+        sub = cands[mask]
+
+        def can_matter(positions: np.ndarray, most: np.ndarray) -> np.ndarray:
+            trial = sub.iloc[positions].assign(rescued=most)
+            return confidence(trial, settings) >= settings.min_confidence
+
+        found, done = rescued_unless_beaten(
+            sequences,
+            sub,
+            n,
+            index,
+            thresholds["min_score"],
+            thresholds["min_coverage"],
+            can_matter,
+        )
+        cands.loc[mask, "rescued"] = found.to_numpy()
+        measured[mask] = True
+        exact[mask] = done.to_numpy()
+        cands["confidence"] = confidence(cands, settings)
+
+    in_rounds(cands["term"], ctx_wanted, may_rank, rescore_while_convincing)
+    # A candidate stopped early holds a lower bound: a gap topic re-scores it if it can matter.
+    measured &= exact
     good = select_fixes(cands, settings)
     gaps = gap_terms(eligible, covered_terms(good), settings)
     # A gap topic's confidence is the best confidence of its terms' candidates: the others
