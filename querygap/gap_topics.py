@@ -10,6 +10,7 @@ import pandas as pd
 import scipy.sparse as sp
 from scipy.sparse.csgraph import connected_components
 
+from querygap.group_text import joined_runs
 from querygap.proposal_settings import ProposalSettings
 
 
@@ -68,9 +69,16 @@ def gap_topics(
     per_query = rows.drop_duplicates(["topic", "query"])[["topic", "query", "example", "searches"]]
     per_query = per_query.sort_values(["topic", "searches", "query"], ascending=[True, False, True])
     head = per_query.groupby("topic").head(1)[["topic", "query"]]
-    names = rows.merge(head, on=["topic", "query"]).sort_values("position")
-    name = names.groupby("topic")["term"].agg(" ".join)
+    names = rows.merge(head, on=["topic", "query"])
+    by_position = np.lexsort((names["position"].to_numpy(), names["topic"].to_numpy()))
     topics = per_query.groupby("topic").agg(searches=("searches", "sum"), queries=("query", "size"))
-    topics["term"] = name
-    topics["terms"] = rows.groupby("topic")["term"].agg(lambda t: " ".join(sorted(set(t))))
+    topics["term"] = joined_runs(
+        names["topic"].to_numpy()[by_position], names["term"].to_numpy(object)[by_position]
+    )
+    # Each topic's distinct terms in alphabetical order: term codes ranked by their text.
+    texts = np.asarray(ts, dtype=object)
+    rank = np.argsort(np.argsort(texts))
+    pairs = np.unique(label[tcodes].astype(np.int64) * len(ts) + rank[tcodes])
+    alphabetical = np.sort(texts)
+    topics["terms"] = joined_runs(pairs // len(ts), alphabetical[pairs % len(ts)])
     return topics.reset_index(), per_query.reset_index(drop=True)
