@@ -90,8 +90,9 @@ WITH qt AS (
     FROM review_queries r JOIN query_terms t ON t.index_id = $index_id AND t.query = r.query
     WHERE r.review_id = $review_id
 ), ctx AS (
+    -- list() then list_sort, not string_agg(... ORDER BY): the same text, 7.1 s -> 5.0 s at M
     SELECT a.query, a.status, a.searches, a.term, a.df, a.in_best,
-           string_agg(b.term, ' ' ORDER BY b.term) AS context
+           array_to_string(list_sort(list(b.term)), ' ') AS context
     FROM qt a JOIN qt b ON b.query = a.query AND b.term <> a.term
     -- only the rows the two sides below read: an ok query's content terms, a failing query's
     -- unmatched terms (9.4 s -> 6.9 s at M, where 77% of the queries fail)
