@@ -115,3 +115,19 @@ def test_export_missing_columns(conn, tmp_path) -> None:
         InputError, match="pages.csv:1: a content export needs columns id, title and body"
     ):
         load_content(conn, path, ContentOptions())
+
+
+def test_squeezed_spacing_equals_the_regular_expression() -> None:
+    # Reference: Python's re, one " " for every run of the spacing characters; line breaks and
+    # other white space (U+2028, U+0085) are not in the set and stay.
+    import random
+    import re
+
+    from querygap.pagetext import _squeeze
+
+    spacing = re.compile(r"[ \t\r\f\v\u00a0\u200b]+")
+    rnd = random.Random(5)
+    alphabet = [" ", "\t", "\r", "\f", "\v", "\u00a0", "\u200b", "\n", "\u2028", "\x85", "a", "é"]
+    texts = ["".join(rnd.choices(alphabet, k=rnd.randint(0, 40))) for _ in range(5000)]
+    texts += ["", " ", "a" + " " * 33 + "b", "\u200b\u200b", "x \t\u00a0 y"]
+    assert [_squeeze(t) for t in texts] == [spacing.sub(" ", t) for t in texts]
