@@ -37,3 +37,19 @@ def test_in_set_on_an_empty_or_all_missing_column() -> None:
     missing = pd.Series([None, None], dtype=object)
     np.testing.assert_array_equal(in_set(missing, ["a"]), [False, False])
     np.testing.assert_array_equal(in_set(missing, [None]), missing.isin([None]).to_numpy())
+
+
+def test_strings_taken_by_arrow_equal_pandas_own_build() -> None:
+    # Reference: pandas building the column from a numpy array of Python strings.
+    import pyarrow as pa
+
+    from querygap.scoring import strings_at
+
+    values = np.array(["water meter", "bill", "é 日本", "", "x"], dtype=object)
+    arrow = pa.array(values, type=pa.large_string())
+    for positions in (np.array([4, 0, 0, 2, 3, 1]), np.array([], dtype=np.int64)):
+        want = pd.DataFrame({"q": values[positions]})["q"]
+        got = strings_at(arrow, positions)
+        assert got.tolist() == want.tolist()
+        if len(positions):
+            pd.testing.assert_series_equal(got, want, check_names=False)
