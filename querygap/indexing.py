@@ -191,6 +191,26 @@ def build_index(conn: duckdb.DuckDBPyConnection, settings: IndexSettings) -> tup
     return index_id, False
 
 
+def csr_of_sorted(
+    rows: np.ndarray, cols: np.ndarray, values: np.ndarray, shape: tuple[int, int]
+) -> sp.csr_matrix:
+    """The CSR matrix of (row, col, value) triples, made directly when they come in CSR order
+    (rows ascending, columns strictly ascending within a row: 0.1 s for 14.5M triples), else
+    through scipy's COO conversion, which sorts and sums repeats (1.8 s)."""
+    n_rows = shape[0]
+    in_order = rows.size < 2 or bool(
+        ((rows[1:] > rows[:-1]) | ((rows[1:] == rows[:-1]) & (cols[1:] > cols[:-1]))).all()
+    )
+    inside = rows.size == 0 or (rows[0] >= 0 and rows[-1] < n_rows)
+    if not (in_order and inside):
+        matrix = sp.csr_matrix((values, (rows, cols)), shape=shape)
+        matrix.sort_indices()
+        return matrix
+    indptr = np.zeros(n_rows + 1, np.int64)
+    np.cumsum(np.bincount(rows, minlength=n_rows), out=indptr[1:])
+    return sp.csr_matrix((values, cols, indptr), shape=shape)
+
+
 def load_index(conn: duckdb.DuckDBPyConnection) -> Index:
     """The current index, read back into memory."""
     rows = run(conn, "index_current").fetchall()
@@ -201,14 +221,12 @@ def load_index(conn: duckdb.DuckDBPyConnection) -> Index:
     terms = frame(conn, "index_terms", {"index_id": index_id})
     docs = frame(conn, "index_doc_rows", {"index_id": index_id})
     vec = run(conn, "index_vectors", {"index_id": index_id}).fetchnumpy()
-    matrix = sp.csr_matrix(
-        (
-            vec["weight"].astype(np.float64),
-            (vec["doc_row"].astype(np.int64), vec["term_id"].astype(np.int64)),
-        ),
-        shape=(int(n_docs), int(n_terms)),
+    matrix = csr_of_sorted(
+        np.asarray(vec["doc_row"], np.int64),
+        np.asarray(vec["term_id"], np.int64),
+        np.asarray(vec["weight"], np.float64),
+        (int(n_docs), int(n_terms)),
     )
-    matrix.sort_indices()
     return Index(
         index_id,
         IndexSettings.from_json(settings_json),
