@@ -38,7 +38,10 @@ Only the candidates whose rescued searches can change a result are re-scored, so
 are those of re-scoring every candidate. Since confidence <= prior:
 
 - a candidate whose prior is under ``min_confidence``, or with fewer than ``min_searches``
-  searches, is never convincing;
+  searches, is never convincing; the others have their queries re-scored most searched first,
+  stopping as soon as rescuing every search left could not lift the confidence to
+  ``min_confidence`` (its stored confidence is then a lower bound, and a gap topic that needs
+  it re-scores it, as below);
 - a context-only synonym of a term that has another convincing fix is never proposed, and one
   whose prior is under half the term's best confidence, or under its ``max_candidates``-th best,
   can no longer be; they are re-scored best prior first, while they can still be proposed,
@@ -79,7 +82,6 @@ from querygap.proposal_candidates import (
 from querygap.proposal_settings import ProposalSettings
 from querygap.rescoring import (
     measure,
-    rescued_searches,
     rescued_unless_beaten,
     rewrite,
     sequences_of,
@@ -200,20 +202,6 @@ def measure_what_counts(
     bound = pd.Series(np.round(prior(cands, settings), 4), index=cands.index)
     measured = pd.Series(False, index=cands.index)
 
-    def rescore(mask: pd.Series) -> None:
-        if mask.any():
-            found = rescued_searches(
-                sequences,
-                cands[mask],
-                n,
-                index,
-                thresholds["min_score"],
-                thresholds["min_coverage"],
-            )
-            cands.loc[mask, "rescued"] = found.to_numpy()
-            measured[mask] = True
-        cands["confidence"] = confidence(cands, settings)
-
     def rescore_unless_beaten(mask: pd.Series, group: pd.Series) -> None:
         """Re-score, stopping a candidate's queries as soon as even rescuing all the rest
         could not lift its confidence above its group's best (stored: a lower bound)."""
@@ -242,7 +230,7 @@ def measure_what_counts(
         group: pd.Series,
         wanted: pd.Series,
         can_count: Callable[[], pd.Series],
-        measure: Callable[[pd.Series], None] = rescore,
+        measure: Callable[[pd.Series], None],
     ) -> None:
         """Re-score the wanted candidates best prior first (1, 2, 4, ... per group and round)
         while ``can_count()`` says their result can still matter."""
@@ -254,28 +242,14 @@ def measure_what_counts(
             measure(pd.Series(cands.index.isin(heads), index=cands.index))
             size *= 2
 
-    may_convince = (bound >= settings.min_confidence) & (cands["searches"] >= settings.min_searches)
-    from_contexts = cands["how"] == "contexts"
-    rescore(may_convince & ~from_contexts)
-    # A context-only synonym is proposed only for a term with no other fix, only when at least
-    # half as confident as the term's best and among its best max_candidates.
-    fixed = cands.loc[convincing(cands, settings) & ~from_contexts, "term"]
-    ctx_wanted = may_convince & from_contexts & ~cands["term"].isin(fixed)
-
-    def may_rank() -> pd.Series:
-        conv = convincing(cands, settings) & ctx_wanted
-        top = cands[conv].sort_values("confidence", ascending=False, kind="mergesort")
-        nth = top.groupby("term").cumcount()
-        best = top[nth == 0].set_index("term")["confidence"]
-        last = top[nth == settings.max_candidates - 1].set_index("term")["confidence"]
-        floor = pd.concat([0.5 * best, last], axis=1).max(axis=1)
-        return bound >= floor.reindex(cands["term"]).fillna(-np.inf).to_numpy()
-
     exact = pd.Series(True, index=cands.index)
 
     def rescore_while_convincing(mask: pd.Series) -> None:
         """Re-score, stopping a candidate's queries as soon as even rescuing all the rest could
         not lift its confidence to min_confidence (it can then never be convincing)."""
+        if not mask.any():
+            cands["confidence"] = confidence(cands, settings)
+            return
         sub = cands[mask]
 
         def can_matter(positions: np.ndarray, most: np.ndarray) -> np.ndarray:
@@ -295,6 +269,23 @@ def measure_what_counts(
         measured[mask] = True
         exact[mask] = done.to_numpy()
         cands["confidence"] = confidence(cands, settings)
+
+    may_convince = (bound >= settings.min_confidence) & (cands["searches"] >= settings.min_searches)
+    from_contexts = cands["how"] == "contexts"
+    rescore_while_convincing(may_convince & ~from_contexts)
+    # A context-only synonym is proposed only for a term with no other fix, only when at least
+    # half as confident as the term's best and among its best max_candidates.
+    fixed = cands.loc[convincing(cands, settings) & ~from_contexts, "term"]
+    ctx_wanted = may_convince & from_contexts & ~cands["term"].isin(fixed)
+
+    def may_rank() -> pd.Series:
+        conv = convincing(cands, settings) & ctx_wanted
+        top = cands[conv].sort_values("confidence", ascending=False, kind="mergesort")
+        nth = top.groupby("term").cumcount()
+        best = top[nth == 0].set_index("term")["confidence"]
+        last = top[nth == settings.max_candidates - 1].set_index("term")["confidence"]
+        floor = pd.concat([0.5 * best, last], axis=1).max(axis=1)
+        return bound >= floor.reindex(cands["term"]).fillna(-np.inf).to_numpy()
 
     in_rounds(cands["term"], ctx_wanted, may_rank, rescore_while_convincing)
     # A candidate stopped early holds a lower bound: a gap topic re-scores it if it can matter.

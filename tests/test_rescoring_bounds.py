@@ -19,6 +19,7 @@ import pandas as pd
 import pytest
 
 import querygap.proposals as stage
+from querygap.rescoring import rescued_searches
 from querygap.workspace import connect
 
 
@@ -39,27 +40,22 @@ def _run(
     ``stop_early=False`` re-scores every query of every candidate asked for (no early stop).
     """
     seen = []
-    real, real_unless = stage.rescued_searches, stage.rescued_unless_beaten
-
-    def counting(sequences, cands, *args, **kwargs):  # type: ignore[no-untyped-def]
-        seen.append(len(cands))
-        return real(sequences, cands, *args, **kwargs)
+    real_unless = stage.rescued_unless_beaten
 
     def counting_unless(sequences, cands, *args, **kwargs):  # type: ignore[no-untyped-def]
         seen.append(len(cands))
         if stop_early:
             return real_unless(sequences, cands, *args, **kwargs)
-        found = real(sequences, cands, *args[:4])
+        found = rescued_searches(sequences, cands, *args[:4])
         return found, pd.Series(True, index=found.index)
 
-    stage.rescued_searches = counting
     stage.rescued_unless_beaten = counting_unless
     try:
         conn = connect(db)
         done = stage.propose(conn, review_id)
         conn.close()
     finally:
-        stage.rescued_searches, stage.rescued_unless_beaten = real, real_unless
+        stage.rescued_unless_beaten = real_unless
     return done.proposals, done.examples, sum(seen)
 
 
@@ -119,7 +115,7 @@ def test_an_early_stop_keeps_a_lower_bound_and_the_rest_exact(
 ) -> None:
     # Against re-scoring every query of the same candidates (rescued_searches): a candidate
     # re-scored to the end has the same figure, one stopped early a figure no higher.
-    real, full = stage.rescued_unless_beaten, stage.rescued_searches
+    real, full = stage.rescued_unless_beaten, rescued_searches
     checked = []
 
     def checking(sequences, cands, *args, **kwargs):  # type: ignore[no-untyped-def]
