@@ -216,3 +216,46 @@ def test_daily_counts_match_the_searches_counted_by_pandas(demo: tuple[Path, Pat
     assert data.daily["zero"].tolist() == want.get("zero", 0 * want.iloc[:, 0]).tolist()
     assert data.daily["low"].tolist() == want.get("low", 0 * want.iloc[:, 0]).tolist()
     assert data.daily["searches"].tolist() == want.sum(axis=1).tolist()
+
+
+def test_flagged_counts_match_the_searches_counted_by_pandas(demo: tuple[Path, Path]) -> None:
+    # Reference: pandas on the stored rows of the window, bot searches left out: per query the
+    # searches, distinct visitors (user key, else session key), the engine and click counts, and
+    # the example (the text typed most often, ties alphabetical).
+    conn = connect(demo[0], read_only=True)
+    start, end = conn.execute(
+        "SELECT window_start, window_end FROM reviews WHERE review_id = '2026-W46'"
+    ).fetchall()[0]
+    rows = conn.execute(
+        "SELECT s.query, s.query_text, coalesce(s.user_key, s.session_key) AS who, s.results, "
+        "s.clicks FROM searches s LEFT JOIN search_sessions b "
+        "ON b.file_id = s.file_id AND b.line = s.line "
+        "WHERE s.searched_at >= ? AND s.searched_at < ? AND NOT coalesce(b.is_bot, false)",
+        [start, end],
+    ).df()
+    got = conn.execute(
+        "SELECT query, example, searches, visitors, engine_searches, engine_empty, "
+        "click_searches, clicked FROM review_queries WHERE review_id = '2026-W46' ORDER BY query"
+    ).df()
+    conn.close()
+    g = rows.groupby("query")
+    want = pd.DataFrame(
+        {
+            "searches": g.size(),
+            "visitors": g["who"].nunique(),
+            "engine_searches": g["results"].count(),
+            "engine_empty": g["results"].agg(lambda r: int((r == 0).sum())),
+            "click_searches": g["clicks"].count(),
+            "clicked": g["clicks"].agg(lambda c: int((c > 0).sum())),
+        }
+    ).sort_index()
+    typed = rows.groupby(["query", "query_text"]).size().rename("n").reset_index()
+    typed = typed.sort_values(["query", "n", "query_text"], ascending=[True, False, True])
+    want["example"] = typed.drop_duplicates("query").set_index("query")["query_text"]
+    assert want["engine_searches"].sum() > 0 and want["click_searches"].sum() > 0
+    got = got.set_index("query")
+    assert got.index.tolist() == want.index.tolist()
+    for column in ["searches", "visitors", "engine_searches", "engine_empty", "click_searches"]:
+        assert got[column].tolist() == want[column].tolist(), column
+    assert got["clicked"].tolist() == want["clicked"].tolist()
+    assert got["example"].tolist() == want["example"].tolist()
