@@ -282,7 +282,9 @@ def review(
 
     with StageProgress(stderr) as stages:
         result = run_review(conn, window, settings, folder, progress=stages)
-    rows = failing_queries(conn, result.review_id, result.index_id).to_dict("records")
+    rows = failing_queries(
+        conn, result.review_id, result.index_id, out.FAILING_IN_TERMINAL
+    ).to_dict("records")
     if as_json:
         out.emit_json(stdout, out.review_payload(result))
     else:

@@ -95,7 +95,11 @@ def review_payload(result: ReviewResult) -> dict[str, Any]:
     return payload
 
 
-def failing_table(rows: list[dict[str, Any]], limit: int = 10) -> Table:
+#: Failing queries the terminal lists (the report lists more, the CSV all).
+FAILING_IN_TERMINAL = 10
+
+
+def failing_table(rows: list[dict[str, Any]], limit: int = FAILING_IN_TERMINAL) -> Table:
     table = Table(title=f"Most searched failing queries (top {limit})", title_justify="left")
     for col in ("query", "searches", "status", "score", "coverage", "missing terms"):
         table.add_column(

@@ -239,9 +239,14 @@ def summarize(
     )
 
 
-def failing_queries(conn: duckdb.DuckDBPyConnection, review_id: str, index_id: str) -> pd.DataFrame:
-    """The failing queries of a review in the columns of failing_queries.csv."""
-    data = frame(conn, "review_failing", {"review_id": review_id, "index_id": index_id})
+def failing_queries(
+    conn: duckdb.DuckDBPyConnection, review_id: str, index_id: str, limit: int | None = None
+) -> pd.DataFrame:
+    """The failing queries of a review in the columns of failing_queries.csv, most searched
+    first: the first ``limit`` of them (all when None; the terminal shows 10, the report 500)."""
+    data = frame(
+        conn, "review_failing", {"review_id": review_id, "index_id": index_id, "limit": limit}
+    )
     data["engine_empty_share"] = (
         (data["engine_empty"] / data["engine_searches"]).where(data["engine_searches"] > 0).round(3)
     )

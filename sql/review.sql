@@ -109,6 +109,7 @@ FROM review_queries WHERE review_id = $review_id;
 -- Reads review_queries, query_terms, documents.
 -- $review_id: the review
 -- $index_id: the index the review scored against
+-- $limit: the most searched so many (NULL: all)
 SELECT r.query, r.example, r.searches, r.visitors, r.status, r.best_score, r.coverage,
        coalesce((SELECT string_agg(t.term, ' ' ORDER BY t.position) FROM query_terms t
                  WHERE t.index_id = $index_id AND t.query = r.query AND NOT t.in_best), '') AS unmatched_terms,
@@ -118,7 +119,8 @@ SELECT r.query, r.example, r.searches, r.visitors, r.status, r.best_score, r.cov
        r.engine_searches, r.engine_empty, r.click_searches, r.clicked
 FROM review_queries r LEFT JOIN documents d ON d.doc_id = r.best_doc
 WHERE r.review_id = $review_id AND r.status <> 'ok'
-ORDER BY r.searches DESC, r.query;
+ORDER BY r.searches DESC, r.query
+LIMIT $limit;
 
 -- name: review_failing_csv
 -- failing_queries.csv's rows as CSV lines ending in CR LF, in the order and columns of

@@ -55,6 +55,10 @@ class Totals:
         return n / self.searches if self.searches else 0.0
 
 
+#: Failing queries the page lists, most searched first (failing_queries.csv holds them all).
+FAILING_ROWS = 500
+
+
 @dataclass
 class ReportData:
     review_id: str
@@ -66,7 +70,7 @@ class ReportData:
     daily: pd.DataFrame  # day, date, searches, zero, low, failing, rate
     profile: pd.DataFrame  # rank, query, example, searches, status, share, cum_share, band
     bands: pd.DataFrame  # band, queries, searches, failing, rate
-    failing: pd.DataFrame  # the rows of failing_queries.csv
+    failing: pd.DataFrame  # the first FAILING_ROWS rows of failing_queries.csv
     changes: pd.DataFrame | None  # query, example, searches, previous_searches, status, change
     clusters: pd.DataFrame | None
     proposals: pd.DataFrame | None
@@ -255,7 +259,7 @@ def load_report_data(conn: duckdb.DuckDBPyConnection, review_id: str) -> ReportD
         ),
         profile=profile,
         bands=band_rates(profile),
-        failing=failing_queries(conn, review_id, str(review["index_id"])),
+        failing=failing_queries(conn, review_id, str(review["index_id"]), FAILING_ROWS),
         changes=(
             frame(conn, "report_changes", {"review_id": review_id, "previous_id": previous_id})
             if previous_id

@@ -17,7 +17,7 @@ import plotly.io as pio
 from plotly.offline import get_plotlyjs
 
 from querygap.report.charts import Chart, pct
-from querygap.report.data import BAND_LIMITS, ReportData, Totals
+from querygap.report.data import BAND_LIMITS, FAILING_ROWS, ReportData, Totals
 
 NOT_RUN = "not run for this review"
 
@@ -150,15 +150,17 @@ def table(
     table_id: str,
     limit: int = TABLE_ROWS,
     full: str | None = None,
+    total: int | None = None,
 ) -> str:
     """A sortable table of ``df``'s first ``limit`` rows, ``columns`` as (column, header, kind).
 
     When rows are left out, a note above the table says how many it shows of how many and links
     ``full`` (the export holding them all) when given. ``data-rows`` is the number of rows shown,
-    ``data-total`` the number of rows of ``df``.
+    ``data-total`` the number of rows of ``df``, or ``total`` when ``df`` holds only the first
+    of that many.
     """
     cols = [c for c in columns if c[0] in df.columns]
-    total = len(df)
+    total = len(df) if total is None else total
     shown = df.iloc[:limit]
     head = "".join(
         f'<th class="num">{escape(h)}</th>' if k in NUMERIC else f"<th>{escape(h)}</th>"
@@ -488,8 +490,15 @@ def render_page(
             "failing",
             "Failing queries",
             f'<p class="muted">The rows of failing_queries.csv, most searched first '
-            f"({len(data.failing):,} unique queries). Click a header to sort.</p>"
-            + table(data.failing, FAILING_TABLE, "failing-table", full="failing_queries.csv"),
+            f"({data.totals.failing_queries():,} unique queries). Click a header to sort.</p>"
+            + table(
+                data.failing,
+                FAILING_TABLE,
+                "failing-table",
+                limit=FAILING_ROWS,
+                full="failing_queries.csv",
+                total=data.totals.failing_queries(),
+            ),
         ),
         ("checks", "Fix check", checks_section(data)),
         ("files", "Files in this folder", exports_list(exports, svgs)),
