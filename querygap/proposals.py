@@ -201,19 +201,24 @@ def measure_what_counts(
     )
     bound = pd.Series(np.round(prior(cands, settings), 4), index=cands.index)
     measured = pd.Series(False, index=cands.index)
+    exact = pd.Series(True, index=cands.index)
 
-    def rescore_unless_beaten(mask: pd.Series, group: pd.Series) -> None:
-        """Re-score, stopping a candidate's queries as soon as even rescuing all the rest
-        could not lift its confidence above its group's best (stored: a lower bound)."""
+    def rescore_until(
+        mask: pd.Series, reaches: Callable[[np.ndarray, np.ndarray], np.ndarray]
+    ) -> None:
+        """Re-score the masked candidates, each one's queries most searched first, stopping a
+        candidate once ``reaches(positions, its confidence were every search left rescued)``
+        is False: its rescued searches are then a lower bound (``exact`` False)."""
+        if not mask.any():
+            cands["confidence"] = confidence(cands, settings)
+            return
         sub = cands[mask]
-        best = cands["confidence"].groupby(group).max()
-        floor = best.reindex(group[mask]).to_numpy()
 
         def can_matter(positions: np.ndarray, most: np.ndarray) -> np.ndarray:
             trial = sub.iloc[positions].assign(rescued=most)
-            return confidence(trial, settings) > floor[positions]
+            return reaches(positions, confidence(trial, settings))
 
-        found, _exact = rescued_unless_beaten(
+        found, done = rescued_unless_beaten(
             sequences,
             sub,
             n,
@@ -224,7 +229,18 @@ def measure_what_counts(
         )
         cands.loc[mask, "rescued"] = found.to_numpy()
         measured[mask] = True
+        exact[mask] = done.to_numpy()
         cands["confidence"] = confidence(cands, settings)
+
+    def rescore_while_convincing(mask: pd.Series) -> None:
+        """Stop a candidate once it can no longer reach min_confidence (never convincing)."""
+        rescore_until(mask, lambda _at, most: most >= settings.min_confidence)
+
+    def rescore_unless_beaten(mask: pd.Series, group: pd.Series) -> None:
+        """Stop a candidate once it can no longer rise above its group's best."""
+        best = cands["confidence"].groupby(group).max()
+        floor = best.reindex(group[mask]).to_numpy()
+        rescore_until(mask, lambda at, most: most > floor[at])
 
     def in_rounds(
         group: pd.Series,
@@ -241,34 +257,6 @@ def measure_what_counts(
             heads = order[order.groupby("group").cumcount() < size].index
             measure(pd.Series(cands.index.isin(heads), index=cands.index))
             size *= 2
-
-    exact = pd.Series(True, index=cands.index)
-
-    def rescore_while_convincing(mask: pd.Series) -> None:
-        """Re-score, stopping a candidate's queries as soon as even rescuing all the rest could
-        not lift its confidence to min_confidence (it can then never be convincing)."""
-        if not mask.any():
-            cands["confidence"] = confidence(cands, settings)
-            return
-        sub = cands[mask]
-
-        def can_matter(positions: np.ndarray, most: np.ndarray) -> np.ndarray:
-            trial = sub.iloc[positions].assign(rescued=most)
-            return confidence(trial, settings) >= settings.min_confidence
-
-        found, done = rescued_unless_beaten(
-            sequences,
-            sub,
-            n,
-            index,
-            thresholds["min_score"],
-            thresholds["min_coverage"],
-            can_matter,
-        )
-        cands.loc[mask, "rescued"] = found.to_numpy()
-        measured[mask] = True
-        exact[mask] = done.to_numpy()
-        cands["confidence"] = confidence(cands, settings)
 
     may_convince = (bound >= settings.min_confidence) & (cands["searches"] >= settings.min_searches)
     from_contexts = cands["how"] == "contexts"
