@@ -71,9 +71,10 @@ SELECT s.query,
                            OR q.coverage < $min_coverage THEN TRUE
                       ELSE FALSE END) AS content_failing
 FROM searches s
-LEFT JOIN search_sessions b ON b.file_id = s.file_id AND b.line = s.line
 LEFT JOIN query_scores q ON q.index_id = $index_id AND q.query = s.query
-WHERE s.searched_at >= $start AND s.searched_at < $end AND NOT coalesce(b.is_bot, FALSE)
+WHERE s.searched_at >= $start AND s.searched_at < $end
+  AND NOT EXISTS (SELECT 1 FROM search_sessions b  -- the bot searches alone, a small hash table
+                  WHERE b.is_bot AND b.file_id = s.file_id AND b.line = s.line)
 GROUP BY s.query ORDER BY s.query;
 
 -- name: checks_bot_searches

@@ -41,12 +41,14 @@ SELECT $review_id, cluster_id, query, searches, key_term FROM cluster_members_df
 -- $review_id: the review
 -- $prev_start: previous window start (inclusive)
 -- $prev_end: previous window end (exclusive)
+-- The bot test is an anti-join with the bot searches alone (as in review_flag), not a join of
+-- every search with its session row (that join took most of week 2's cluster stage at M).
 INSERT INTO clusters
 WITH prev_win AS (
     SELECT s.query FROM searches s
-    LEFT JOIN search_sessions b ON b.file_id = s.file_id AND b.line = s.line
     WHERE s.searched_at >= $prev_start AND s.searched_at < $prev_end
-      AND NOT coalesce(b.is_bot, false)
+      AND NOT EXISTS (SELECT 1 FROM search_sessions b
+                      WHERE b.is_bot AND b.file_id = s.file_id AND b.line = s.line)
 ), covered AS (
     SELECT count(*) > 0 AS has FROM searches
     WHERE searched_at >= $prev_start AND searched_at < $prev_end

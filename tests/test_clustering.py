@@ -308,3 +308,35 @@ def test_gram_matrix_equals_scikit_learn_char_wb() -> None:
         assert got.shape == ref.shape
         assert abs(got - ref).max() < 1e-12
     assert gram_matrix(["", " "], 5).shape == (2, 0)
+
+
+def test_previous_volumes_match_the_searches_counted_by_pandas(
+    demo_conn: duckdb.DuckDBPyConnection,
+) -> None:
+    # Reference: pandas on the stored rows; a cluster's previous volume is the non-bot searches
+    # of its member queries in the window before (2026-W45), bots left out as in the review.
+    start, end = demo_conn.execute(
+        "SELECT window_start, window_end FROM reviews WHERE review_id = '2026-W45'"
+    ).fetchall()[0]
+    prev = demo_conn.execute(
+        "SELECT s.query, coalesce(b.is_bot, false) AS bot FROM searches s LEFT JOIN "
+        "search_sessions b ON b.file_id = s.file_id AND b.line = s.line "
+        "WHERE s.searched_at >= ? AND s.searched_at < ?",
+        [start, end],
+    ).df()
+    members = demo_conn.execute(
+        "SELECT cluster_id, query FROM cluster_members WHERE review_id = '2026-W46'"
+    ).df()
+    stored = demo_conn.execute(
+        "SELECT cluster_id, previous_searches FROM clusters WHERE review_id = '2026-W46'"
+    ).df()
+    assert prev["bot"].any()  # the demo's bots are there to be left out
+    per_query = prev.loc[~prev["bot"], "query"].value_counts()
+    want = (
+        members.assign(n=members["query"].map(per_query).fillna(0).astype(int))
+        .groupby("cluster_id")["n"]
+        .sum()
+    )
+    got = stored.set_index("cluster_id")["previous_searches"]
+    assert got.sort_index().tolist() == want.reindex(got.index).sort_index().tolist()
+    assert want.sum() > 0
