@@ -11,6 +11,7 @@ import numpy as np
 import pandas as pd
 import pytest
 from rapidfuzz.distance import OSA
+from stored_rows import window_searches
 
 from querygap.clustering import (
     ClusterSettings,
@@ -315,15 +316,7 @@ def test_previous_volumes_match_the_searches_counted_by_pandas(
 ) -> None:
     # Reference: pandas on the stored rows; a cluster's previous volume is the non-bot searches
     # of its member queries in the window before (2026-W45), bots left out as in the review.
-    start, end = demo_conn.execute(
-        "SELECT window_start, window_end FROM reviews WHERE review_id = '2026-W45'"
-    ).fetchall()[0]
-    prev = demo_conn.execute(
-        "SELECT s.query, coalesce(b.is_bot, false) AS bot FROM searches s LEFT JOIN "
-        "search_sessions b ON b.file_id = s.file_id AND b.line = s.line "
-        "WHERE s.searched_at >= ? AND s.searched_at < ?",
-        [start, end],
-    ).df()
+    prev = window_searches(demo_conn, "2026-W45", "s.query")
     members = demo_conn.execute(
         "SELECT cluster_id, query FROM cluster_members WHERE review_id = '2026-W46'"
     ).df()

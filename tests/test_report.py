@@ -14,6 +14,7 @@ from plotly.offline import get_plotlyjs
 from report_demo import HOSTILE, build
 from scipy import stats
 from selectolax.lexbor import LexborHTMLParser as HTMLParser
+from stored_rows import window_searches
 
 from querygap.report.charts import all_charts, zipf_slope
 from querygap.report.data import band_rates, daily_rates, frequency_profile, load_report_data
@@ -223,16 +224,12 @@ def test_flagged_counts_match_the_searches_counted_by_pandas(demo: tuple[Path, P
     # searches, distinct visitors (user key, else session key), the engine and click counts, and
     # the example (the text typed most often, ties alphabetical).
     conn = connect(demo[0], read_only=True)
-    start, end = conn.execute(
-        "SELECT window_start, window_end FROM reviews WHERE review_id = '2026-W46'"
-    ).fetchall()[0]
-    rows = conn.execute(
-        "SELECT s.query, s.query_text, coalesce(s.user_key, s.session_key) AS who, s.results, "
-        "s.clicks FROM searches s LEFT JOIN search_sessions b "
-        "ON b.file_id = s.file_id AND b.line = s.line "
-        "WHERE s.searched_at >= ? AND s.searched_at < ? AND NOT coalesce(b.is_bot, false)",
-        [start, end],
-    ).df()
+    rows = window_searches(
+        conn,
+        "2026-W46",
+        "s.query, s.query_text, coalesce(s.user_key, s.session_key) AS who, s.results, s.clicks",
+    )
+    rows = rows[~rows["bot"]]
     got = conn.execute(
         "SELECT query, example, searches, visitors, engine_searches, engine_empty, "
         "click_searches, clicked FROM review_queries WHERE review_id = '2026-W46' ORDER BY query"
