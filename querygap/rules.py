@@ -44,6 +44,7 @@ import pandas as pd
 
 from querygap.analyzer import AnalyzerSettings, analyze_series
 from querygap.errors import InputError
+from querygap.group_text import joined_runs
 from querygap.safe_csv import FORMULA_TRIGGERS, write_csv
 from querygap.textnorm import normalize_query
 
@@ -269,8 +270,8 @@ def select_rules(rules: list[Rule], not_rejected: bool = False) -> list[Rule]:
 def analyzed_text(texts: pd.Series, analyzer: AnalyzerSettings) -> pd.Series:
     """Each text as its analyzer terms joined by single spaces ('' when it has none)."""
     texts = pd.Series(texts, dtype=object).reset_index(drop=True)
-    occ = analyze_series(texts, analyzer)
-    joined = occ.groupby("row", sort=True)["term"].agg(" ".join)
+    occ = analyze_series(texts, analyzer)  # rows ascending, terms in text order
+    joined = joined_runs(occ["row"].to_numpy(), occ["term"].to_numpy(object))
     return joined.reindex(np.arange(len(texts)), fill_value="").astype(object)
 
 

@@ -33,6 +33,7 @@ import pandas as pd
 
 from querygap.analyzer import AnalyzerSettings
 from querygap.errors import ConfigError, StageOrderError
+from querygap.group_text import joined_runs
 from querygap.indexing import Index, load_index
 from querygap.rules import Rule, apply_rules, compile_rules, read_rules, select_rules
 from querygap.safe_csv import write_csv
@@ -157,11 +158,11 @@ def simulate_queries(
     )
     touches = applied.touches
     lines = pd.Series([r.line for r in rules], dtype=np.int64)
-    rule_lines = (
-        pd.DataFrame({"row": touches["row"], "line": lines.to_numpy()[touches["rule"].to_numpy()]})
-        .astype({"line": str})
-        .groupby("row")["line"]
-        .agg(" ".join)
+    touched_row = touches["row"].to_numpy()
+    by_row = np.argsort(touched_row, kind="stable")  # each row's rules keep their order
+    rule_lines = joined_runs(
+        touched_row[by_row],
+        lines.to_numpy()[touches["rule"].to_numpy()][by_row].astype(str).astype(object),
     )
     queries = pd.DataFrame(
         {

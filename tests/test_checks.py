@@ -295,3 +295,28 @@ def test_accepted_decisions_are_checked_at_the_next_review(
     assert stored.fetchall()[0][0] == 4
     # A decision made after the review window is not checked yet.
     assert check_accepted(demo_conn, iso_week("2026-W45")).empty
+
+
+def test_each_changed_query_lists_the_lines_of_its_rules(
+    demo_conn: duckdb.DuckDBPyConnection, tmp_path: Path
+) -> None:
+    # Reference: pandas' groupby(...).agg(" ".join) of the rule touches, in touch order.
+    from querygap.indexing import load_index
+    from querygap.rules import read_rules
+    from querygap.simulate import simulate_queries
+    from querygap.workspace import frame
+
+    rows = [*_truth_rows(), ("synonym", "bill", "invoice", "one-way")]
+    rules = read_rules(_rules_file(tmp_path / "truth.csv", rows))
+    review = frame(demo_conn, "checks_review_queries", {"review_id": "2026-W46"})
+    queries, touches = simulate_queries(review, rules, load_index(demo_conn), 0.1, 0.5)
+    lines = pd.Series([r.line for r in rules])
+    want = (
+        pd.DataFrame({"row": touches["row"], "line": lines.to_numpy()[touches["rule"]]})
+        .astype({"line": str})
+        .groupby("row")["line"]
+        .agg(" ".join)
+    )
+    got = queries.set_index("row")["rules"]
+    assert (got.str.count(" ") > 0).any()  # some query is touched by two rules
+    assert got.to_dict() == want.reindex(got.index).fillna("").to_dict()

@@ -43,7 +43,7 @@ def test_strings_taken_by_arrow_equal_pandas_own_build() -> None:
     # Reference: pandas building the column from a numpy array of Python strings.
     import pyarrow as pa
 
-    from querygap.scoring import strings_at
+    from querygap.string_sets import strings_at
 
     values = np.array(["water meter", "bill", "é 日本", "", "x"], dtype=object)
     arrow = pa.array(values, type=pa.large_string())
