@@ -319,8 +319,11 @@ def _load_staged(
     # Staging used temp tables only; from here on the workspace changes, all or nothing.
     with transaction(conn):
         run(conn, "store_new_searches", {"file_id": file_id})
-        run(conn, "store_number_repeats", {"file_id": file_id})
         if earlier:
+            # Only rows another file could also hold are fingerprinted (sql/load.sql).
+            run(conn, "stage_fingerprints", {"file_id": file_id})
+            run(conn, "stage_number_repeats")
+            run(conn, "store_fingerprints")
             run(conn, "store_duplicates", {"file_id": file_id})
             run(conn, "drop_duplicate_searches", {"file_id": file_id})
         run(conn, "store_typed_rejects", {"file_id": file_id})
@@ -377,6 +380,7 @@ def _load_staged(
         "stage_line_shift",
         "stage_query_map",
         "stage_key_map",
+        "stage_fingerprints",
     ):
         conn.execute(f"DROP TABLE IF EXISTS {table}")
     return LoadResult(

@@ -144,12 +144,15 @@ SELECT DISTINCT query_raw FROM stage_typed WHERE problem IS NULL AND NOT blank;
 -- name: stage_key_map
 -- Pseudonymise each distinct session and user key of the rows that parsed, once, with
 -- HMAC-SHA256 (RFC 2104): H((K' xor opad) || H((K' xor ipad) || key)), key as UTF-8, the first
--- 16 hex digits kept; the same value as querygap.redaction.keyed_hash_series. Reads stage_typed;
--- writes temp table stage_key_map (k, hashed).
+-- 16 hex digits kept (as the UBIGINT they spell); the same value as
+-- querygap.redaction.keyed_hash_series. Reads stage_typed; writes temp table stage_key_map (k,
+-- hashed).
 -- $inner_pad: K' xor ipad, 64 bytes (querygap.redaction.hmac_pads)
 -- $outer_pad: K' xor opad, 64 bytes
 CREATE OR REPLACE TEMP TABLE stage_key_map AS
-SELECT k, left(sha256($outer_pad || unhex(sha256($inner_pad || encode(k)))), 16) AS hashed
+SELECT k,
+       ('0x' || left(sha256($outer_pad || unhex(sha256($inner_pad || encode(k)))), 16))::UBIGINT
+           AS hashed
 FROM (
     SELECT session_raw AS k FROM stage_typed WHERE problem IS NULL AND NOT blank
     UNION
@@ -158,49 +161,83 @@ FROM (
 WHERE k IS NOT NULL;
 
 -- name: store_new_searches
--- Insert every row that parsed, with its fingerprint and occurrence 1; store_number_repeats and
--- store_duplicates then correct the few rows that need it, in the same transaction. Reads
--- stage_numbered, stage_query_map (query_raw, query_text, query) and stage_key_map (k, hashed);
--- writes searches. A row's fingerprint hashes its instant, its keys and its redacted text; the
--- n-th row of a file with a given fingerprint is the same search as the n-th row with it in an
--- overlapping export.
+-- Insert every row that parsed, without a fingerprint and with occurrence 1; stage_fingerprints
+-- and store_fingerprints give the rows that another file could also hold theirs, in the same
+-- transaction. Reads stage_numbered, stage_query_map (query_raw, query_text, query) and
+-- stage_key_map (k, hashed); writes searches.
 -- $file_id: the log_files id of this file
 INSERT INTO searches
 SELECT
     $file_id, t.line, t.searched_at, m.query_text, m.query, s.hashed, u.hashed, t.results,
-    t.clicks,
-    -- md5_number_upper of epoch_us, keys and text joined by chr(31); its macro goes through a bit
-    -- string, 6x slower than the mask
-    (md5_number(concat_ws(
-        chr(31), epoch_us(t.searched_at), coalesce(s.hashed, ''), coalesce(u.hashed, ''),
-        m.query_text
-    )) & 18446744073709551615::UHUGEINT)::UBIGINT,
-    1
+    t.clicks, NULL, 1
 FROM stage_numbered t
 JOIN stage_query_map m ON m.query_raw = t.query_raw
 LEFT JOIN stage_key_map s ON s.k = t.session_raw
 LEFT JOIN stage_key_map u ON u.k = t.user_raw
 WHERE t.problem IS NULL;
 
--- name: store_number_repeats
--- Number the rows of this file that share a fingerprint (1, 2, ... in line order); every other
--- row keeps occurrence 1. Repeats are rare, so the window runs over few rows. Reads and writes
--- searches (this file's rows only).
+-- name: stage_fingerprints
+-- Fingerprint the searches, of any file, that have none yet and whose instant lies both within
+-- this file's first and last and within the other files' first and last: only those can be a
+-- search two overlapping exports share. A fingerprint hashes a search's instant, keys and
+-- redacted text; the n-th row of a file with a given fingerprint is the same search as the n-th
+-- row with it in another file. A weekly file that overlaps no other is never fingerprinted (at
+-- 20M searches the hashing took about 12 s of the load). Rows with one fingerprint share their
+-- instant, so a file's rows with one fingerprint are all fingerprinted in the same pass, and
+-- numbered 1, 2, ... in line order by stage_number_repeats. Reads searches; writes temp table
+-- stage_fingerprints (file_id, line, fingerprint, occurrence 1).
 -- $file_id: the log_files id of this file
-UPDATE searches SET occurrence = n.occurrence
+CREATE OR REPLACE TEMP TABLE stage_fingerprints AS
+WITH mine AS (
+    SELECT min(searched_at) AS lo, max(searched_at) AS hi FROM searches WHERE file_id = $file_id
+), others AS (
+    SELECT min(searched_at) AS lo, max(searched_at) AS hi FROM searches WHERE file_id <> $file_id
+), span AS (
+    -- empty (lo > hi, or NULL) when the spans do not overlap or either file has no rows
+    SELECT CASE WHEN mine.lo > others.lo THEN mine.lo ELSE others.lo END AS lo,
+           CASE WHEN mine.hi < others.hi THEN mine.hi ELSE others.hi END AS hi
+    FROM mine, others
+), todo AS (
+    SELECT
+        s.file_id, s.line,
+        -- md5_number_upper of epoch_us, keys (16 hex digits) and text joined by chr(31); its
+        -- macro goes through a bit string, 6x slower than the mask
+        (md5_number(concat_ws(
+            chr(31), epoch_us(s.searched_at), coalesce(printf('%016x', s.session_key), ''),
+            coalesce(printf('%016x', s.user_key), ''), s.query_text
+        )) & 18446744073709551615::UHUGEINT)::UBIGINT AS fingerprint
+    FROM searches s, span
+    WHERE s.fingerprint IS NULL AND s.searched_at >= span.lo AND s.searched_at <= span.hi
+)
+SELECT file_id, line, fingerprint, 1 AS occurrence FROM todo;
+
+-- name: stage_number_repeats
+-- Number the rows of stage_fingerprints of one file that share a fingerprint 1, 2, ... in line
+-- order; every other row keeps occurrence 1. Repeats are rare, so the window runs over few rows.
+-- Reads and writes stage_fingerprints.
+UPDATE stage_fingerprints SET occurrence = n.occurrence
 FROM (
-    SELECT line, row_number() OVER (PARTITION BY fingerprint ORDER BY line)::INTEGER AS occurrence
-    FROM searches
-    WHERE file_id = $file_id AND fingerprint IN (
-        SELECT fingerprint FROM searches WHERE file_id = $file_id
-        GROUP BY fingerprint HAVING count(*) > 1
-    )
+    SELECT f.file_id, f.line,
+           row_number() OVER (PARTITION BY f.file_id, f.fingerprint ORDER BY f.line)::INTEGER
+               AS occurrence
+    FROM stage_fingerprints f
+    SEMI JOIN (
+        SELECT file_id, fingerprint FROM stage_fingerprints
+        GROUP BY file_id, fingerprint HAVING count(*) > 1
+    ) r ON r.file_id = f.file_id AND r.fingerprint = f.fingerprint
 ) n
-WHERE searches.file_id = $file_id AND searches.line = n.line;
+WHERE stage_fingerprints.file_id = n.file_id AND stage_fingerprints.line = n.line;
+
+-- name: store_fingerprints
+-- Store the fingerprints and occurrences of stage_fingerprints. Reads stage_fingerprints; writes
+-- searches.
+UPDATE searches SET fingerprint = f.fingerprint, occurrence = f.occurrence
+FROM stage_fingerprints f
+WHERE searches.file_id = f.file_id AND searches.line = f.line;
 
 -- name: store_duplicates
 -- Record this file's rows that an earlier file already holds (same fingerprint and occurrence).
--- Reads searches; writes duplicates. Runs after store_number_repeats.
+-- Reads searches; writes duplicates. Runs after store_fingerprints.
 -- $file_id: the log_files id of this file
 INSERT INTO duplicates
 SELECT r.file_id, r.line, s.file_id, s.line

@@ -198,8 +198,8 @@ ORDER BY failing_searches DESC, d.term;
 -- $bot_seconds: median gap below which such a session is a bot
 INSERT INTO search_sessions
 WITH s AS (
-    SELECT file_id, line, searched_at, coalesce(user_key, session_key, 'row' || file_id || ':' || line) AS who,
-           epoch(searched_at) - epoch(lag(searched_at) OVER (PARTITION BY coalesce(user_key, session_key, 'row' || file_id || ':' || line) ORDER BY searched_at, file_id, line)) AS gap
+    SELECT file_id, line, searched_at, coalesce(printf('%016x', coalesce(user_key, session_key)), 'row' || file_id || ':' || line) AS who,
+           epoch(searched_at) - epoch(lag(searched_at) OVER (PARTITION BY coalesce(printf('%016x', coalesce(user_key, session_key)), 'row' || file_id || ':' || line) ORDER BY searched_at, file_id, line)) AS gap
     FROM searches
 ), n AS (
     SELECT *, sum(CASE WHEN gap IS NULL OR gap > $gap_minutes * 60 THEN 1 ELSE 0 END)

@@ -39,7 +39,7 @@ ORDER BY actor, at_us, s.file_id, s.line;
 -- last_us, peak_per_minute, peak_per_hour, median_gap_s), session_actors and searches; writes the
 -- temporary table session_named. A session key's session is 's:<key>'; the n-th session of a
 -- user key 'u:<key>:<n>'; a search with neither key 'r:<file_id>:<line>'. The actor key is the
--- first search's user key, else its session key.
+-- first search's user key, else its session key. Keys are shown as their 16 hex digits.
 -- Three criteria, each with a human limit and a bot limit (a session beyond a bot limit is 'bot';
 -- beyond a human limit only, 'suspect'; else 'human'): searches within any 60 s, searches within
 -- any 3600 s, and the median gap between consecutive searches (only for sessions of at least
@@ -54,9 +54,9 @@ ORDER BY actor, at_us, s.file_id, s.line;
 CREATE OR REPLACE TEMP TABLE session_named AS
 SELECT f.session,
        CASE WHEN f.actor < 0 THEN 'r:' || f.file_id || ':' || f.line
-            WHEN a.kind = 's' THEN 's:' || a.key
-            ELSE 'u:' || a.key || ':' || f.number END AS session_id,
-       coalesce(s.user_key, s.session_key) AS actor_key,
+            WHEN a.kind = 's' THEN 's:' || printf('%016x', a.key)
+            ELSE 'u:' || printf('%016x', a.key) || ':' || f.number END AS session_id,
+       printf('%016x', coalesce(s.user_key, s.session_key)) AS actor_key,
        f.searches, make_timestamptz(f.first_us) AS first_at, make_timestamptz(f.last_us) AS last_at,
        f.peak_per_minute, f.peak_per_hour, f.median_gap_s,
        CASE WHEN f.peak_per_minute > $bot_per_minute OR f.peak_per_hour > $bot_per_hour

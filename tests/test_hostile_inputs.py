@@ -231,8 +231,17 @@ def test_duplicate_rows_in_one_file_are_separate_searches(conn, tmp_path) -> Non
     path = write_bytes(tmp_path, "dup.csv", (HEADER + ROW * 3).encode())
     result = load_log(conn, path, LoadOptions())
     assert (result.loaded, result.duplicates) == (3, 0)
-    occurrences = conn.execute("SELECT occurrence FROM searches ORDER BY line").fetchall()
-    assert occurrences == [(1,), (2,), (3,)]
+    # An overlapping export holding two of them, and a later search: the two are the first
+    # file's 1st and 2nd, so they are duplicates, and the later one is new.
+    later = ROW.replace("08:00:00Z", "08:00:01Z")
+    again = load_log(
+        conn, write_bytes(tmp_path, "b.csv", (HEADER + ROW * 2 + later).encode()), LoadOptions()
+    )
+    assert (again.loaded, again.duplicates) == (1, 2)
+    occurrences = conn.execute(
+        "SELECT file_id, line, occurrence FROM searches ORDER BY file_id, line"
+    ).fetchall()
+    assert occurrences == [(1, 2, 1), (1, 3, 2), (1, 4, 3), (2, 4, 1)]
 
 
 @pytest.mark.parametrize("rows", [1, 50_000])

@@ -29,7 +29,10 @@ def csv_file(tmp_path: Path, body: str, name: str = "log.csv") -> Path:
 
 
 def sql_hashes(conn: duckdb.DuckDBPyConnection, keys: list[str], secret: bytes) -> dict[str, str]:
-    """Run the load's own statement stage_key_map over ``keys`` (as session keys)."""
+    """Run the load's own statement stage_key_map over ``keys`` (as session keys).
+
+    Returns each key's stored UBIGINT printed as 16 hex digits, as the tool shows it.
+    """
     conn.execute(
         "CREATE OR REPLACE TEMP TABLE stage_typed AS SELECT k AS session_raw, "
         "NULL::VARCHAR AS user_raw, NULL::VARCHAR AS problem, false AS blank "
@@ -38,7 +41,7 @@ def sql_hashes(conn: duckdb.DuckDBPyConnection, keys: list[str], secret: bytes) 
     )
     inner, outer = hmac_pads(secret)
     run(conn, "stage_key_map", {"inner_pad": inner, "outer_pad": outer})
-    return dict(conn.execute("SELECT k, hashed FROM stage_key_map").fetchall())
+    return dict(conn.execute("SELECT k, printf('%016x', hashed) FROM stage_key_map").fetchall())
 
 
 # RFC 4231 (HMAC-SHA256 test vectors), test cases 1 and 6 (values from memory, and checked here
@@ -86,6 +89,15 @@ def test_stored_keys_and_fingerprints_follow_the_documented_formulas(conn, tmp_p
         "2026-11-02T08:00:02Z,s1,,  Meter   reading ,2\n",
     )
     load_log(conn, path, LoadOptions())
+    # A file that overlaps no other is not fingerprinted; one that overlaps it fingerprints both
+    # files' searches in the shared span (here its first and last search: all three).
+    assert conn.execute("SELECT count(fingerprint) FROM searches").fetchall() == [(0,)]
+    overlapping = csv_file(
+        tmp_path,
+        "2026-11-02T08:00:00Z,s1,u1,Pay my bill,1\n2026-11-02T08:00:02Z,s1,,  Meter   reading ,2\n",
+        "b.csv",
+    )
+    assert load_log(conn, overlapping, LoadOptions()).duplicates == 2
     secret = bytes(conn.execute("SELECT secret FROM workspace_secret").fetchall()[0][0])
     rows = conn.execute(
         "SELECT epoch_us(searched_at), session_key, user_key, query_text, fingerprint "
@@ -95,18 +107,21 @@ def test_stored_keys_and_fingerprints_follow_the_documented_formulas(conn, tmp_p
     for (micros, session, user, text, fingerprint), (raw_s, raw_u) in zip(
         rows, raw_keys, strict=True
     ):
-        # Reference: Python's hmac and hashlib. The pseudonym is HMAC-SHA256 (first 16 hex
-        # digits); the fingerprint is the first 8 bytes of the MD5 digest of instant (us), keys
-        # and text joined by U+001F, read little-endian (DuckDB's md5_number_upper).
+        # Reference: Python's hmac and hashlib. The pseudonym is HMAC-SHA256 (its first 16 hex
+        # digits, stored as the 64-bit number they spell); the fingerprint is the first 8 bytes
+        # of the MD5 digest of instant (us), keys (16 hex digits) and text joined by U+001F,
+        # read little-endian (DuckDB's md5_number_upper).
         for raw, stored in ((raw_s, session), (raw_u, user)):
             want = None if raw is None else hmac.new(secret, raw.encode(), "sha256").hexdigest()
-            assert stored == (None if want is None else want[:16])
-        joined = "\x1f".join([str(micros), session or "", user or "", text])
+            assert stored == (None if want is None else int(want[:16], 16))
+        shown = ["" if key is None else f"{key:016x}" for key in (session, user)]
+        joined = "\x1f".join([str(micros), *shown, text])
         digest = hashlib.md5(joined.encode()).digest()
         assert fingerprint == int.from_bytes(digest[:8], "little")
     check = conn.execute(
         "SELECT count(*) FROM searches WHERE fingerprint <> md5_number_upper(epoch_us(searched_at)"
-        "::VARCHAR || chr(31) || coalesce(session_key, '') || chr(31) || coalesce(user_key, '') "
+        "::VARCHAR || chr(31) || coalesce(printf('%016x', session_key), '') || chr(31) "
+        "|| coalesce(printf('%016x', user_key), '') "
         "|| chr(31) || query_text)"
     ).fetchall()
     assert check == [(0,)]

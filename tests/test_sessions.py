@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import json
+import re
 from datetime import UTC, datetime, timedelta
 from pathlib import Path
 
@@ -24,6 +25,18 @@ from querygap.workspace import connect, run
 T0 = datetime(2026, 11, 9, 8, 0, tzinfo=UTC)
 
 
+def key_of(name: str | None) -> int | None:
+    """A stored visitor key (64 bits) for a short test name: its bytes, zero-padded to 8."""
+    return None if name is None else int.from_bytes(name.encode().ljust(8, b"\0"), "big")
+
+
+def named(shown: str) -> str:
+    """A session id or actor key with each key's 16 hex digits turned back into its test name."""
+    return re.sub(
+        "[0-9a-f]{16}", lambda m: bytes.fromhex(m.group()).rstrip(b"\0").decode(), shown
+    )
+
+
 def add_searches(conn: duckdb.DuckDBPyConnection, rows: list[dict]) -> None:
     """Insert searches: each row gives at (seconds after T0), query, and optional keys."""
     data = pd.DataFrame(
@@ -33,8 +46,8 @@ def add_searches(conn: duckdb.DuckDBPyConnection, rows: list[dict]) -> None:
             "searched_at": [T0 + timedelta(seconds=r["at"]) for r in rows],
             "query_text": [r.get("query", "q") for r in rows],
             "query": [r.get("query", "q") for r in rows],
-            "session_key": [r.get("session") for r in rows],
-            "user_key": [r.get("user") for r in rows],
+            "session_key": pd.array([key_of(r.get("session")) for r in rows], "UInt64"),
+            "user_key": pd.array([key_of(r.get("user")) for r in rows], "UInt64"),
             "results": None,
             "clicks": None,
             "fingerprint": range(len(rows)),
@@ -51,12 +64,12 @@ def add_searches(conn: duckdb.DuckDBPyConnection, rows: list[dict]) -> None:
 
 def sessions_of(conn: duckdb.DuckDBPyConnection) -> list[str]:
     rows = conn.execute("SELECT session_id FROM search_sessions ORDER BY line").fetchall()
-    return [r[0] for r in rows]
+    return [named(r[0]) for r in rows]
 
 
 def verdicts(conn: duckdb.DuckDBPyConnection) -> dict[str, str]:
     rows = conn.execute("SELECT actor_key, verdict FROM session_traffic").fetchall()
-    return dict(rows)
+    return {named(key): verdict for key, verdict in rows}
 
 
 def test_split_at_the_gap_boundary(conn: duckdb.DuckDBPyConnection) -> None:

@@ -9,7 +9,13 @@ import pytest
 
 from querygap.errors import SchemaError, WorkspaceBusyError
 from querygap.sqlfiles import SQL_DIR, all_statements, parse_sql_text
-from querygap.workspace import connect, current_version, latest_schema_version, run
+from querygap.workspace import (
+    connect,
+    current_version,
+    latest_schema_version,
+    run,
+    schema_scripts,
+)
 
 
 def test_parses_names_docs_and_params() -> None:
@@ -58,6 +64,40 @@ def test_run_checks_parameters(conn: duckdb.DuckDBPyConnection) -> None:
 
 def test_schema_version_recorded(conn: duckdb.DuckDBPyConnection) -> None:
     assert current_version(conn) == latest_schema_version() >= 1
+
+
+def test_version_9_visitor_keys_migrate_to_the_numbers_their_hex_digits_spell(
+    tmp_path: Path,
+) -> None:
+    # A workspace as version 9 left it: keys stored as 16 hex digits. Reference: Python's int().
+    path = tmp_path / "ws.duckdb"
+    old = duckdb.connect(str(path))
+    for version, script in schema_scripts():
+        if version <= 9:
+            old.execute(script.read_text(encoding="utf-8"))
+            old.execute("INSERT INTO schema_version VALUES (?, ?, now())", [version, script.name])
+    keys = [
+        ("00ab12cd34ef5678", "ffffffffffffffff"),
+        (None, "0000000000000001"),
+        ("hand-made", None),
+    ]
+    for line, (session, user) in enumerate(keys, start=2):
+        old.execute(
+            "INSERT INTO searches VALUES (1, ?, TIMESTAMPTZ '2026-11-02 08:00:00+00', 'Bill', "
+            "'bill', ?, ?, NULL, NULL, 7, 1)",
+            [line, session, user],
+        )
+    old.close()
+    conn = connect(path)
+    got = conn.execute("SELECT session_key, user_key FROM searches ORDER BY line").fetchall()
+    shown = conn.execute(
+        "SELECT printf('%016x', session_key), printf('%016x', user_key) FROM searches "
+        "WHERE line < 4 ORDER BY line"
+    ).fetchall()
+    conn.close()
+    assert got[:2] == [(int("00ab12cd34ef5678", 16), 2**64 - 1), (None, 1)]
+    assert shown == keys[:2]
+    assert got[2][0] is not None and got[2][1] is None  # a non-hex key keeps a hash of its text
 
 
 def test_newer_workspace_is_refused(tmp_path: Path) -> None:
