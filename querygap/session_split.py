@@ -41,6 +41,73 @@ class Sessions:
     median_gap_s: np.ndarray  # float64, NaN for a single search
 
 
+def rows_of(stored: np.ndarray, wanted: np.ndarray) -> np.ndarray:
+    """Positions in ``stored`` (distinct rowids, any order) of each rowid in ``wanted``."""
+    if stored.size and stored[0] == 0 and stored[-1] == stored.size - 1:
+        if (np.diff(stored) == 1).all():  # a table without deletions, scanned in order
+            return wanted.astype(np.int64, copy=False)
+    where = np.full(int(stored.max()) + 1 if stored.size else 0, -1, np.int64)
+    where[stored] = np.arange(stored.size)
+    return where[wanted]
+
+
+def in_file_order(
+    kind: np.ndarray, key: np.ndarray, at_us: np.ndarray, file_id: np.ndarray, line: np.ndarray
+) -> tuple[np.ndarray, np.ndarray]:
+    """Rows to reorder so that rows of equal (kind, key, at_us) come in (file_id, line) order.
+
+    The rows are sorted by (kind, key, at_us) already; rows that tie there (one actor's searches
+    at one instant, rare) are reordered among themselves and every other row stays. Returns
+    (to, source): for every array ``v`` in that order, ``v[to] = v[source]`` puts it in order
+    (both empty when no two rows tie).
+    """
+    same = (kind[1:] == kind[:-1]) & (key[1:] == key[:-1]) & (at_us[1:] == at_us[:-1])
+    after = np.flatnonzero(same)  # row i + 1 ties with row i, for i in after
+    if after.size == 0:
+        empty = np.empty(0, np.int64)
+        return empty, empty
+    to = np.union1d(after, after + 1)
+    # a run of tied rows starts at a row that does not tie with the row before it
+    opens = np.ones(to.size, np.bool_)
+    inner = to[1:] > 0
+    opens[1:][inner] = ~same[to[1:][inner] - 1]
+    run_id = np.cumsum(opens)
+    return to, to[np.lexsort((line[to], file_id[to], run_id))]
+
+
+@numba.njit(cache=True, nogil=True)
+def _actor_numbers(has_key: np.ndarray, is_user: np.ndarray, key: np.ndarray) -> np.ndarray:
+    actor = np.empty(key.size, np.int64)
+    current = -1
+    for i in range(key.size):
+        if not has_key[i]:
+            actor[i] = -1
+            continue
+        if (
+            current < 0
+            or not has_key[i - 1]
+            or key[i] != key[i - 1]
+            or is_user[i] != is_user[i - 1]
+        ):
+            current += 1
+        actor[i] = current
+    return actor
+
+
+def actor_numbers(has_key: np.ndarray, is_user: np.ndarray, key: np.ndarray) -> np.ndarray:
+    """Actor numbers for :func:`split_sessions` from rows sorted by (has_key, is_user, key).
+
+    Rows with the same key and kind get one number (0, 1, ... in row order); a row without a
+    key gets -1. ``key`` is the 64-bit session or user key (any value where ``has_key`` is
+    false). A session key and a user key with equal values are two actors.
+    """
+    return _actor_numbers(
+        np.ascontiguousarray(has_key, np.bool_),
+        np.ascontiguousarray(is_user, np.bool_),
+        np.ascontiguousarray(key, np.uint64),
+    )
+
+
 @numba.njit(cache=True, nogil=True)
 def _boundaries(
     actor: np.ndarray, is_user: np.ndarray, at_us: np.ndarray, gap_us: int

@@ -38,7 +38,7 @@ import pandas as pd
 import pyarrow as pa
 
 from querygap.errors import ConfigError
-from querygap.session_split import split_sessions
+from querygap.session_split import actor_numbers, in_file_order, rows_of, split_sessions
 from querygap.windows import Window
 from querygap.workspace import frame, run, transaction
 
@@ -133,34 +133,43 @@ def build_sessions(
         run(conn, "sessions_clear")
         run(conn, "sessions_clear_traffic")
         run(conn, "sessions_clear_steps")
-        run(conn, "sessions_actors")
-        rows = run(conn, "sessions_rows").fetchnumpy()
-        actor = np.asarray(rows["actor"])
-        at_us = np.asarray(rows["at_us"])
-        split = split_sessions(
-            actor,
-            np.asarray(rows["is_user"]),
-            at_us,
-            round(settings.gap_minutes * 60 * 1_000_000),
-        )
-        file_id = np.asarray(rows["file_id"])
-        line = np.asarray(rows["line"])
+        order = run(conn, "sessions_order").fetchnumpy()
+        payload = run(conn, "sessions_payload").fetchnumpy()
+        at = rows_of(np.asarray(payload["r"]), np.asarray(order["r"]))
+        file_id = np.asarray(payload["file_id"])[at]
+        line = np.asarray(payload["line"])[at]
+        kind = np.asarray(order["kind"])
+        key = np.asarray(order["key"])
+        at_us = np.asarray(order["at_us"])
+        to, source = in_file_order(kind, key, at_us, file_id, line)
+        for v in (at, file_id, line, kind, key, at_us):
+            v[to] = v[source]
+        has_key = kind > 0
+        is_user = kind == 2
+        actor_key = np.asarray(payload["actor_key"])[at]
+        query_hash = np.asarray(payload["query_hash"])[at]
+        del order, payload, at
+        actor = actor_numbers(has_key, is_user, key)
+        split = split_sessions(actor, is_user, at_us, round(settings.gap_minutes * 60 * 1_000_000))
         steps = session_steps(
             STEP_GAP_SECONDS * 1_000_000,
             split.row_session,
-            np.asarray(rows["query_hash"]),
+            query_hash,
             at_us,
             file_id,
             line,
         )
-        del rows, at_us
+        first = split.first_row
         figures = pa.table(
             {
-                "session": np.arange(split.first_row.size, dtype=np.int64),
-                "actor": actor[split.first_row],
+                "session": np.arange(first.size, dtype=np.int64),
+                "has_key": has_key[first],
+                "is_user": is_user[first],
+                "key": key[first],
+                "actor_key": actor_key[first],
                 "number": split.number,
-                "file_id": file_id[split.first_row],
-                "line": line[split.first_row],
+                "file_id": file_id[first],
+                "line": line[first],
                 "searches": split.searches,
                 "first_us": split.first_us,
                 "last_us": split.last_us,
@@ -169,6 +178,7 @@ def build_sessions(
                 "median_gap_s": pa.array(split.median_gap_s, from_pandas=True),  # NaN -> NULL
             }
         )
+        del at_us, key, actor, actor_key, query_hash
         conn.register("session_figures", figures)
         run(conn, "sessions_name", settings.sql_params())
         conn.unregister("session_figures")
@@ -183,7 +193,6 @@ def build_sessions(
         run(conn, "sessions_assign")
         conn.unregister("session_rows")
         run(conn, "sessions_drop_named")
-        run(conn, "sessions_drop_actors")
     return frame(conn, "sessions_summary")
 
 

@@ -209,7 +209,7 @@ WITH s AS (
     SELECT who, k, count(*) >= $bot_searches AND coalesce(median(gap) FILTER (WHERE gap <= $gap_minutes * 60), 1e9) < $bot_seconds AS is_bot
     FROM n GROUP BY who, k
 )
-SELECT n.file_id, n.line, n.who || '#' || n.k, b.is_bot
+SELECT n.file_id, n.line, dense_rank() OVER (ORDER BY n.who, n.k) - 1, b.is_bot
 FROM n JOIN b ON b.who = n.who AND b.k = n.k;
 
 -- name: steps_fill_simple
@@ -219,14 +219,14 @@ FROM n JOIN b ON b.who = n.who AND b.k = n.k;
 -- $max_gap_us: longest step kept (querygap.sessions.STEP_GAP_SECONDS)
 INSERT INTO search_steps
 WITH s AS (
-    SELECT x.file_id, x.line, x.query, epoch_us(x.searched_at) AS at_us, ss.session_id
+    SELECT x.file_id, x.line, x.query, epoch_us(x.searched_at) AS at_us, ss.session
     FROM searches x JOIN search_sessions ss ON ss.file_id = x.file_id AND ss.line = x.line
     WHERE NOT ss.is_bot
 ), seq AS (
     SELECT file_id, line, query, at_us,
            lead(file_id) OVER w AS next_file_id, lead(line) OVER w AS next_line,
            lead(query) OVER w AS next_query, lead(at_us) OVER w AS next_us
-    FROM s WINDOW w AS (PARTITION BY session_id ORDER BY at_us, file_id, line)
+    FROM s WINDOW w AS (PARTITION BY session ORDER BY at_us, file_id, line)
 )
 SELECT file_id, line, next_file_id, next_line, at_us, next_us - at_us
 FROM seq WHERE next_query IS NOT NULL AND next_query <> query AND next_us - at_us <= $max_gap_us;

@@ -89,7 +89,11 @@ def test_rebuilding_sessions_never_repeats_a_key(conn, tmp_path) -> None:
     load_log(conn, log(tmp_path / "w1.csv", "2025-03-04", queries), LoadOptions())
     for _ in range(2):
         build_sessions(conn)
-    for table, key in (("search_sessions", "file_id, line"), ("session_traffic", "session_id")):
+    for table, key in (
+        ("search_sessions", "file_id, line"),
+        ("session_traffic", "session_id"),
+        ("session_traffic", "session"),
+    ):
         total, distinct = conn.execute(
             f"SELECT count(*), count(DISTINCT ({key})) FROM {table}"
         ).fetchall()[0]

@@ -10,10 +10,11 @@ from __future__ import annotations
 import duckdb
 import numpy as np
 import pandas as pd
+import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from querygap.session_split import split_sessions
+from querygap.session_split import actor_numbers, in_file_order, rows_of, split_sessions
 
 GAP_US = 1_800_000_000  # 30 minutes
 
@@ -110,3 +111,60 @@ def test_a_session_key_never_splits_and_keyless_searches_stand_alone() -> None:
     assert got.searches.tolist() == [1, 1, 2]
     assert np.isnan(got.median_gap_s[:2]).all()
     assert got.median_gap_s[2] == 10 * GAP_US / 1e6
+
+
+@settings(max_examples=60, deadline=None)
+@given(
+    st.lists(st.tuples(st.booleans(), st.booleans(), st.integers(0, 3)), min_size=0, max_size=40)
+)
+def test_actor_numbers_match_pandas_groups(rows: list[tuple[bool, bool, int]]) -> None:
+    # Reference: pandas' groupby(...).ngroup() over (kind, key) of the keyed rows, sorted as the
+    # session stage sorts them; keyless rows get -1.
+    frame = pd.DataFrame(rows, columns=["has_key", "is_user", "key"])
+    frame.loc[~frame["has_key"], ["is_user", "key"]] = [False, 0]
+    frame = frame.sort_values(["has_key", "is_user", "key"], kind="stable").reset_index(drop=True)
+    got = actor_numbers(
+        frame["has_key"].to_numpy(),
+        frame["is_user"].to_numpy(),
+        frame["key"].to_numpy(np.uint64),
+    )
+    want = np.full(len(frame), -1, np.int64)
+    keyed = frame["has_key"].to_numpy()
+    if keyed.any():
+        want[keyed] = frame[keyed].groupby(["is_user", "key"], sort=True).ngroup().to_numpy()
+    assert got.tolist() == want.tolist()
+
+
+@settings(max_examples=60, deadline=None)
+@given(st.lists(st.tuples(st.integers(0, 2), st.integers(0, 2), st.integers(0, 3)), max_size=40))
+def test_ties_in_time_end_in_file_and_line_order_as_pandas_sorts(rows) -> None:
+    # Reference: pandas' sort_values over (kind, key, time, file, line). The rows arrive sorted by
+    # (kind, key, time) and an arbitrary rowid, as sessions_order gives them.
+    rng = np.random.default_rng(len(rows))
+    frame = pd.DataFrame(rows, columns=["kind", "key", "at_us"])
+    frame["file_id"] = rng.integers(1, 3, len(frame))
+    frame["line"] = rng.permutation(len(frame)) + 2
+    frame["rowid"] = rng.permutation(len(frame))
+    given_order = frame.sort_values(["kind", "key", "at_us", "rowid"]).reset_index(drop=True)
+    arrays = [
+        given_order[c].to_numpy(np.int64) for c in ("kind", "key", "at_us", "file_id", "line")
+    ]
+    to, source = in_file_order(*arrays)
+    perm = np.arange(len(given_order))
+    perm[to] = perm[source]
+    got = given_order.iloc[perm]
+    want = frame.sort_values(["kind", "key", "at_us", "file_id", "line"])
+    columns = ["kind", "key", "at_us", "file_id", "line"]
+    assert got[columns].to_numpy().tolist() == want[columns].to_numpy().tolist()
+
+
+@pytest.mark.parametrize("deleted", [False, True])
+def test_rows_of_finds_each_rowid_as_a_dict_would(deleted: bool) -> None:
+    # Reference: a Python dict from rowid to position.
+    rng = np.random.default_rng(7)
+    stored = np.arange(50)
+    if deleted:  # rowids with gaps, scanned out of order
+        stored = rng.permutation(np.delete(stored, [0, 7, 49]))
+    wanted = rng.permutation(stored)
+    position = {int(r): i for i, r in enumerate(stored)}
+    assert rows_of(stored, wanted).tolist() == [position[int(r)] for r in wanted]

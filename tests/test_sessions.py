@@ -32,9 +32,7 @@ def key_of(name: str | None) -> int | None:
 
 def named(shown: str) -> str:
     """A session id or actor key with each key's 16 hex digits turned back into its test name."""
-    return re.sub(
-        "[0-9a-f]{16}", lambda m: bytes.fromhex(m.group()).rstrip(b"\0").decode(), shown
-    )
+    return re.sub("[0-9a-f]{16}", lambda m: bytes.fromhex(m.group()).rstrip(b"\0").decode(), shown)
 
 
 def add_searches(conn: duckdb.DuckDBPyConnection, rows: list[dict]) -> None:
@@ -63,7 +61,10 @@ def add_searches(conn: duckdb.DuckDBPyConnection, rows: list[dict]) -> None:
 
 
 def sessions_of(conn: duckdb.DuckDBPyConnection) -> list[str]:
-    rows = conn.execute("SELECT session_id FROM search_sessions ORDER BY line").fetchall()
+    rows = conn.execute(
+        "SELECT t.session_id FROM search_sessions s JOIN session_traffic t USING (session) "
+        "ORDER BY s.line"
+    ).fetchall()
     return [named(r[0]) for r in rows]
 
 
@@ -110,6 +111,24 @@ def test_session_key_wins_over_user_key_and_keyless_searches_stand_alone(
     )
     build_sessions(conn)
     assert sessions_of(conn) == ["s:s9", "s:s9", "r:1:4", "r:1:5"]
+
+
+def test_a_session_key_and_a_user_key_of_one_value_are_two_actors(
+    conn: duckdb.DuckDBPyConnection,
+) -> None:
+    # A log may use one id as both: the session key's searches never split, the user key's do.
+    add_searches(
+        conn,
+        [
+            {"at": 0, "session": "k1"},
+            {"at": 1, "user": "k1"},
+            {"at": 7200, "session": "k1"},
+            {"at": 7201, "user": "k1"},
+        ],
+    )
+    build_sessions(conn)
+    assert sessions_of(conn) == ["s:k1", "u:k1:1", "s:k1", "u:k1:2"]
+    assert sorted(verdicts(conn)) == ["k1"]  # one actor key shown, for both kinds
 
 
 def test_rebuild_is_idempotent(conn: duckdb.DuckDBPyConnection) -> None:
@@ -241,7 +260,7 @@ def test_demo_bots_found(demo_db: Path) -> None:
     conn = connect(demo_db, read_only=True)
     got = conn.execute(
         "SELECT t.actor_key, count(*) FROM search_sessions s JOIN session_traffic t"
-        " USING (session_id) WHERE s.is_bot GROUP BY 1 ORDER BY 2"
+        " USING (session) WHERE s.is_bot GROUP BY 1 ORDER BY 2"
     ).fetchall()
     suspects = conn.execute(
         "SELECT count(*) FROM session_traffic WHERE verdict = 'suspect'"

@@ -66,16 +66,45 @@ def test_schema_version_recorded(conn: duckdb.DuckDBPyConnection) -> None:
     assert current_version(conn) == latest_schema_version() >= 1
 
 
+def workspace_at(path: Path, last: int) -> duckdb.DuckDBPyConnection:
+    """A new workspace built by the schema scripts up to version ``last`` only."""
+    old = duckdb.connect(str(path))
+    for version, script in schema_scripts():
+        if version <= last:
+            old.execute(script.read_text(encoding="utf-8"))
+            old.execute("INSERT INTO schema_version VALUES (?, ?, now())", [version, script.name])
+    return old
+
+
+def test_version_11_sessions_get_one_number_per_name(tmp_path: Path) -> None:
+    path = tmp_path / "ws.duckdb"
+    old = workspace_at(path, 11)
+    names = ["u:b:1", "s:a", "u:b:1", "r:1:5"]  # r:1:5 came from the stand-in: no traffic row
+    for line, name in enumerate(names, start=2):
+        old.execute("INSERT INTO search_sessions VALUES (1, ?, ?, false)", [line, name])
+    for name in ("s:a", "u:b:1"):
+        old.execute(
+            "INSERT INTO session_traffic VALUES (?, NULL, 1, TIMESTAMPTZ '2026-11-02 08:00:00+00', "
+            "TIMESTAMPTZ '2026-11-02 08:00:00+00', 1, 1, NULL, 'human')",
+            [name],
+        )
+    old.close()
+    conn = connect(path)
+    numbers = [
+        r[0] for r in conn.execute("SELECT session FROM search_sessions ORDER BY line").fetchall()
+    ]
+    named = dict(conn.execute("SELECT session_id, session FROM session_traffic").fetchall())
+    conn.close()
+    assert len(numbers) == 4 and numbers[0] == numbers[2] and len(set(numbers)) == 3
+    assert named == {"u:b:1": numbers[0], "s:a": numbers[1]}
+
+
 def test_version_9_visitor_keys_migrate_to_the_numbers_their_hex_digits_spell(
     tmp_path: Path,
 ) -> None:
     # A workspace as version 9 left it: keys stored as 16 hex digits. Reference: Python's int().
     path = tmp_path / "ws.duckdb"
-    old = duckdb.connect(str(path))
-    for version, script in schema_scripts():
-        if version <= 9:
-            old.execute(script.read_text(encoding="utf-8"))
-            old.execute("INSERT INTO schema_version VALUES (?, ?, now())", [version, script.name])
+    old = workspace_at(path, 9)
     keys = [
         ("00ab12cd34ef5678", "ffffffffffffffff"),
         (None, "0000000000000001"),
