@@ -11,6 +11,7 @@ from __future__ import annotations
 
 import time
 from collections.abc import Callable
+from concurrent.futures import Future, ThreadPoolExecutor
 from dataclasses import dataclass, field
 from datetime import datetime
 from pathlib import Path
@@ -101,16 +102,23 @@ def score_stage(conn: duckdb.DuckDBPyConnection, params: dict[str, object]) -> i
     """Score and store the window's queries not yet scored against the index; their number.
 
     The queries are scored and stored ``SCORE_PART`` at a time, in one transaction (all or
-    none are stored). A function of its own so the index is freed before the later stages run.
+    none are stored); one part is stored (by DuckDB, which releases the GIL) while the next is
+    scored. A function of its own so the index is freed before the later stages run.
     """
     todo = frame(conn, "review_unscored_queries", params)["query"]
     if len(todo):
         index = load_index(conn)
-        with transaction(conn):
+        index_id = str(params["index_id"])
+        with transaction(conn), ThreadPoolExecutor(max_workers=1) as storer:
+            storing: Future[None] | None = None
             for start in range(0, len(todo), SCORE_PART):
                 tables = score_queries(todo.iloc[start : start + SCORE_PART], index)
-                store_scores(conn, str(params["index_id"]), tables)
+                if storing is not None:
+                    storing.result()  # the connection serves one statement at a time
+                storing = storer.submit(store_scores, conn, index_id, tables)
                 del tables
+            if storing is not None:
+                storing.result()
     return len(todo)
 
 

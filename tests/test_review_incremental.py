@@ -5,6 +5,8 @@ from __future__ import annotations
 from datetime import datetime
 from pathlib import Path
 
+import pytest
+
 from querygap.logload import LoadOptions, load_log
 from querygap.pageload import ContentOptions, load_content
 from querygap.review import run_review
@@ -123,3 +125,36 @@ def test_scoring_in_parts_stores_what_one_part_stores(tmp_path, monkeypatch) -> 
         conn.close()
     assert len(tables[2]["query_scores"]) == len(queries) and tables[2]["query_top_pages"]
     assert tables[2] == tables[1000]
+
+
+def test_a_part_that_fails_leaves_no_part_stored(tmp_path, monkeypatch) -> None:
+    # Parts are stored while the next is scored; a failure in a later part must still roll the
+    # earlier, already stored parts back (one transaction), and surface the error.
+    import querygap.review as review
+    from querygap.workspace import connect
+
+    monkeypatch.setattr(review, "SCORE_PART", 2)
+    calls = []
+    real = review.score_queries
+
+    def failing_third(queries, index):
+        calls.append(len(queries))
+        if len(calls) == 3:
+            raise RuntimeError("scoring failed")
+        return real(queries, index)
+
+    monkeypatch.setattr(review, "score_queries", failing_third)
+    conn = connect(tmp_path / "ws.duckdb")
+    (tmp_path / "pages.csv").write_text(CONTENT, encoding="utf-8")
+    load_content(conn, tmp_path / "pages.csv", ContentOptions(source="site"))
+    queries = ["water meter", "leak", "pay bill", "sofa", "meeter", "sofas", "lake", "bill"]
+    load_log(conn, log(tmp_path / "w1.csv", "2025-03-04", queries), LoadOptions())
+    with pytest.raises(RuntimeError, match="scoring failed"):
+        run_review(conn, week_of(datetime(2025, 3, 4)), ReviewSettings(), None)
+    assert calls == [2, 2, 2]
+    stored = [
+        conn.execute(f"SELECT count(*) FROM {name}").fetchall()[0][0]
+        for name in ("query_scores", "query_top_pages", "query_terms")
+    ]
+    conn.close()
+    assert stored == [0, 0, 0]
