@@ -38,6 +38,8 @@ from dataclasses import dataclass, field
 import duckdb
 import numpy as np
 import pandas as pd
+import pyarrow as pa
+import pyarrow.compute as pc
 from rapidfuzz.distance import OSA
 from rapidfuzz.process import cpdist
 from scipy import sparse
@@ -184,7 +186,7 @@ def near_pairs(
     a, b = pair // n_other, pair % n_other
     if not len(a):
         return empty, empty, empty, 0
-    dist = cpdist(left[a].tolist(), other[b].tolist(), scorer=OSA.distance, workers=1)
+    dist = cpdist(left[a].tolist(), other[b].tolist(), scorer=OSA.distance, workers=-1)
     return a, b, np.asarray(dist, dtype=np.int64), len(a)
 
 
@@ -254,12 +256,18 @@ def gram_matrix(texts: list[str], max_df: int) -> sparse.csr_matrix:
     gram) sparse products, so the only Python loop is over unique words.
     """
     n = len(texts)
-    words = pd.Series(texts, dtype=object).str.split().explode().dropna()
-    if words.empty:
+    # the words of every text at once (Arrow splits at runs of white space, as str.split()
+    # does; the empty pieces around leading or trailing space are dropped)
+    pieces = pc.utf8_split_whitespace(pa.array(texts, type=pa.large_string()))
+    flat = pc.list_flatten(pieces)
+    kept = pc.not_equal(flat, "")
+    words = pc.filter(flat, kept).to_numpy(zero_copy_only=False)
+    if not len(words):
         return sparse.csr_matrix((n, 0))
+    rows = pc.filter(pc.list_parent_indices(pieces), kept).to_numpy()
     word_codes, unique_words = pd.factorize(words, sort=False)
     text_word = sparse.csr_matrix(
-        (np.ones(len(word_codes)), (words.index.to_numpy(np.int64), word_codes)),
+        (np.ones(len(word_codes)), (rows.astype(np.int64), word_codes)),
         shape=(n, len(unique_words)),
     )
     wi, gi, grams = word_grams(np.asarray(unique_words, dtype=object))
@@ -329,7 +337,7 @@ def consistent_pairs(
     )
     keyed = side[side["key"].notna()].explode("words").dropna(subset=["words"])
     dist = np.asarray(
-        cpdist(keyed["key"].tolist(), keyed["words"].tolist(), scorer=OSA.distance, workers=1)
+        cpdist(keyed["key"].tolist(), keyed["words"].tolist(), scorer=OSA.distance, workers=-1)
     )
     near = dist <= edit_limit(_lengths(keyed["key"].to_numpy(object)))
     side_ok = pd.Series(near, index=keyed.index).groupby(level=0).any()

@@ -300,7 +300,14 @@ def test_gram_matrix_equals_scikit_learn_char_wb() -> None:
     # sorted gram order in both, so the matrices must agree entry by entry.
     from sklearn.feature_extraction.text import TfidfVectorizer
 
-    texts = [*synthetic_failing(3000, seed=5), "a", "aaaa aaaa", "  x  y ", "meter meter reading"]
+    texts = [
+        *synthetic_failing(3000, seed=5),
+        "a",
+        "aaaa aaaa",
+        "  x  y ",
+        "tab\tand\nnewline",
+        "meter meter reading",
+    ]
     for max_df in (3, 50, 10_000):
         ref = TfidfVectorizer(
             analyzer="char_wb", ngram_range=(3, 3), lowercase=False, max_df=max_df
