@@ -196,7 +196,7 @@ ORDER BY failing_searches DESC, d.term;
 -- $gap_minutes: inactivity that ends a session
 -- $bot_searches: searches a session needs before it can be a bot
 -- $bot_seconds: median gap below which such a session is a bot
-INSERT INTO search_sessions
+INSERT INTO search_sessions (file_id, line, session, is_bot)
 WITH s AS (
     SELECT file_id, line, searched_at, coalesce(printf('%016x', coalesce(user_key, session_key)), 'row' || file_id || ':' || line) AS who,
            epoch(searched_at) - epoch(lag(searched_at) OVER (PARTITION BY coalesce(printf('%016x', coalesce(user_key, session_key)), 'row' || file_id || ':' || line) ORDER BY searched_at, file_id, line)) AS gap

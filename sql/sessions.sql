@@ -72,7 +72,10 @@ FROM session_figures f;
 
 -- name: sessions_traffic
 -- Rate figures and verdict of every session. Reads session_named; writes session_traffic.
-INSERT INTO session_traffic
+INSERT INTO session_traffic (
+    session, session_id, actor_key, searches, first_at, last_at, peak_per_minute, peak_per_hour,
+    median_gap_s, verdict
+)
 SELECT session, session_id, actor_key, searches, first_at, last_at, peak_per_minute, peak_per_hour,
        median_gap_s, verdict
 FROM session_named;
@@ -80,7 +83,7 @@ FROM session_named;
 -- name: sessions_assign
 -- One row per search in search_sessions, is_bot set for the searches of a 'bot' session. Reads
 -- the registered frame session_rows (file_id, line, session), session_named.
-INSERT INTO search_sessions
+INSERT INTO search_sessions (file_id, line, session, is_bot)
 SELECT r.file_id, r.line, r.session, n.verdict = 'bot'
 FROM session_rows r JOIN session_named n ON n.session = r.session;
 

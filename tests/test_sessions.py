@@ -73,20 +73,51 @@ def verdicts(conn: duckdb.DuckDBPyConnection) -> dict[str, str]:
     return {named(key): verdict for key, verdict in rows}
 
 
-def test_split_at_the_gap_boundary(conn: duckdb.DuckDBPyConnection) -> None:
-    # 30 minutes: the de facto default (Catledge & Pitkow, 1995). A gap of exactly 30 minutes
-    # stays in the session; one second more opens a new one.
-    add_searches(
-        conn,
-        [
-            {"at": 0, "user": "u1"},
-            {"at": 1800, "user": "u1"},
-            {"at": 3601, "user": "u1"},
-            {"at": 3602, "user": "u2"},
-        ],
-    )
+@pytest.mark.parametrize(
+    ("rows", "sessions"),
+    [
+        pytest.param(
+            # 30 minutes: the de facto default (Catledge & Pitkow, 1995). A gap of exactly 30
+            # minutes stays in the session; one second more opens a new one.
+            [
+                {"at": 0, "user": "u1"},
+                {"at": 1800, "user": "u1"},
+                {"at": 3601, "user": "u1"},
+                {"at": 3602, "user": "u2"},
+            ],
+            ["u:u1:1", "u:u1:1", "u:u1:2", "u:u2:1"],
+            id="split at the gap boundary",
+        ),
+        pytest.param(
+            [
+                {"at": 0, "user": "u1", "session": "s9"},
+                {"at": 7200, "user": "u1", "session": "s9"},  # 2 h apart, same session key
+                {"at": 7300},
+                {"at": 7301},
+            ],
+            ["s:s9", "s:s9", "r:1:4", "r:1:5"],
+            id="a session key wins over the user key; keyless searches stand alone",
+        ),
+        pytest.param(
+            # A log may use one id as both: the session key's searches never split, the user
+            # key's do.
+            [
+                {"at": 0, "session": "k1"},
+                {"at": 1, "user": "k1"},
+                {"at": 7200, "session": "k1"},
+                {"at": 7201, "user": "k1"},
+            ],
+            ["s:k1", "u:k1:1", "s:k1", "u:k1:2"],
+            id="a session key and a user key of one value are two actors",
+        ),
+    ],
+)
+def test_sessions_are_named_by_key_kind_and_gap(
+    conn: duckdb.DuckDBPyConnection, rows: list[dict], sessions: list[str]
+) -> None:
+    add_searches(conn, rows)
     build_sessions(conn)
-    assert sessions_of(conn) == ["u:u1:1", "u:u1:1", "u:u1:2", "u:u2:1"]
+    assert sessions_of(conn) == sessions
 
 
 def test_gap_is_overridable(conn: duckdb.DuckDBPyConnection) -> None:
@@ -95,40 +126,6 @@ def test_gap_is_overridable(conn: duckdb.DuckDBPyConnection) -> None:
     assert sessions_of(conn) == ["u:u1:1", "u:u1:2"]
     build_sessions(conn, SessionSettings(gap_minutes=10))
     assert sessions_of(conn) == ["u:u1:1", "u:u1:1"]
-
-
-def test_session_key_wins_over_user_key_and_keyless_searches_stand_alone(
-    conn: duckdb.DuckDBPyConnection,
-) -> None:
-    add_searches(
-        conn,
-        [
-            {"at": 0, "user": "u1", "session": "s9"},
-            {"at": 7200, "user": "u1", "session": "s9"},  # 2 h apart, same session key
-            {"at": 7300},
-            {"at": 7301},
-        ],
-    )
-    build_sessions(conn)
-    assert sessions_of(conn) == ["s:s9", "s:s9", "r:1:4", "r:1:5"]
-
-
-def test_a_session_key_and_a_user_key_of_one_value_are_two_actors(
-    conn: duckdb.DuckDBPyConnection,
-) -> None:
-    # A log may use one id as both: the session key's searches never split, the user key's do.
-    add_searches(
-        conn,
-        [
-            {"at": 0, "session": "k1"},
-            {"at": 1, "user": "k1"},
-            {"at": 7200, "session": "k1"},
-            {"at": 7201, "user": "k1"},
-        ],
-    )
-    build_sessions(conn)
-    assert sessions_of(conn) == ["s:k1", "u:k1:1", "s:k1", "u:k1:2"]
-    assert sorted(verdicts(conn)) == ["k1"]  # one actor key shown, for both kinds
 
 
 def test_rebuild_is_idempotent(conn: duckdb.DuckDBPyConnection) -> None:
