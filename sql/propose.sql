@@ -197,10 +197,16 @@ ORDER BY failing_searches DESC, d.term;
 -- $bot_searches: searches a session needs before it can be a bot
 -- $bot_seconds: median gap below which such a session is a bot
 INSERT INTO search_sessions (file_id, line, session, is_bot)
-WITH s AS (
-    SELECT file_id, line, searched_at, coalesce(printf('%016x', coalesce(user_key, session_key)), 'row' || file_id || ':' || line) AS who,
-           epoch(searched_at) - epoch(lag(searched_at) OVER (PARTITION BY coalesce(printf('%016x', coalesce(user_key, session_key)), 'row' || file_id || ':' || line) ORDER BY searched_at, file_id, line)) AS gap
+WITH w AS (
+    -- the visitor: the user key, else the session key (16 hex digits), else the search alone
+    SELECT file_id, line, searched_at,
+           coalesce(printf('%016x', coalesce(user_key, session_key)), 'row' || file_id || ':' || line)
+               AS who
     FROM searches
+), s AS (
+    SELECT *, epoch(searched_at) - epoch(lag(searched_at) OVER (
+                  PARTITION BY who ORDER BY searched_at, file_id, line)) AS gap
+    FROM w
 ), n AS (
     SELECT *, sum(CASE WHEN gap IS NULL OR gap > $gap_minutes * 60 THEN 1 ELSE 0 END)
                   OVER (PARTITION BY who ORDER BY searched_at, file_id, line) AS k
