@@ -215,15 +215,19 @@ def test_negative_fractional_and_non_numeric_counts_are_rejected(conn, tmp_path)
         "2026-11-02T08:00:00Z,v1,d,1,-3\n"  # 5
         "2026-11-02T08:00:00Z,v1,e,99999999999999999999999,0\n"  # 6: beyond BIGINT
         "2026-11-02T08:00:00Z,v1,f, 3.0 ,true\n"  # 7: kept as 3 and 1
+        "2026-11-02T08:00:00Z,v1,g,+5,007\n"  # 8: kept as 5 and 7 (digits alone: the fast branch)
     )
     result = load_log(conn, write_bytes(tmp_path, "n.csv", body.encode()), LoadOptions())
-    assert (result.loaded, result.rejected) == (1, 5)
+    assert (result.loaded, result.rejected) == (2, 5)
     got = rejects(conn)
     assert got[2][1] == "the result count -1 is negative"
     assert got[4][1] == "the result count 1.5 is not a whole number"
     assert got[5][:2] == ("clicks", "the click count -3 is negative")
     assert {got[i][0] for i in (2, 3, 4, 6)} == {"results"}
-    assert conn.execute("SELECT results, clicks FROM searches").fetchall() == [(3, 1)]
+    assert conn.execute("SELECT results, clicks FROM searches ORDER BY line").fetchall() == [
+        (3, 1),
+        (5, 7),
+    ]
 
 
 def test_duplicate_rows_in_one_file_are_separate_searches(conn, tmp_path) -> None:
