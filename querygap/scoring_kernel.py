@@ -644,10 +644,20 @@ class Postings:
 
 
 def _by_weight_py(
-    ptr: np.ndarray, idx: np.ndarray, val: np.ndarray, out_idx: np.ndarray, out_val: np.ndarray
+    ptr: np.ndarray,
+    idx: np.ndarray,
+    val: np.ndarray,
+    out_idx: np.ndarray,
+    out_val: np.ndarray,
+    turns: np.ndarray,
 ) -> None:
-    """Each row's entries by value falling; a stable sort, so ties keep the rising ``idx``."""
-    for t in prange(ptr.size - 1):
+    """Each row's entries by value falling; a stable sort, so ties keep the rising ``idx``.
+
+    Rows are taken in the order ``turns`` (a permutation): the threads share the range in equal
+    blocks, so ``turns`` deals the rows out in turn and no thread gets all the long ones.
+    """
+    for i in prange(turns.size):
+        t = turns[i]
         lo = ptr[t]
         hi = ptr[t + 1]
         if hi - lo < 2:
@@ -677,7 +687,10 @@ def impact_order(matrix: sp.csr_matrix) -> tuple[np.ndarray, np.ndarray]:
         return idx[order], val[order]
     out_idx = np.empty_like(idx)
     out_val = np.empty_like(val)
-    _by_weight(matrix.indptr.astype(np.int64), idx, val, out_idx, out_val)
+    # Rarest first means the long lists sit at the end: dealt out, each thread gets its share.
+    n_rows = matrix.shape[0]
+    turns = np.argsort(np.arange(n_rows) % numba.get_num_threads(), kind="stable")
+    _by_weight(matrix.indptr.astype(np.int64), idx, val, out_idx, out_val, turns)
     return out_idx, out_val
 
 
