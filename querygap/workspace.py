@@ -75,18 +75,34 @@ def connect(
         raise SchemaError(
             f"{target} is not a querygap workspace: {str(exc).splitlines()[0]}"
         ) from None
-    conn.execute("SET TimeZone = 'UTC'")
+    _session_settings(conn)
     # Bound memory: DuckDB spills staging tables and sorts to disk beyond this limit, so a log many
     # times larger than RAM still loads. QUERYGAP_MEMORY_LIMIT overrides (a DuckDB size, "4GB").
     conn.execute(f"SET memory_limit = '{memory_limit()}'")
     if target != ":memory:":
         spill = Path(target).resolve().parent / (Path(target).name + ".tmp")
         conn.execute(f"SET temp_directory = '{str(spill).replace(chr(39), chr(39) * 2)}'")
-    # DuckDB draws a progress bar on stdout during long statements, which would corrupt --json.
-    conn.execute("SET enable_progress_bar = false")
     if not read_only:
         migrate(conn, target)
     return conn
+
+
+def _session_settings(conn: duckdb.DuckDBPyConnection) -> None:
+    """The settings each connection keeps for itself (the memory limit is the database's)."""
+    conn.execute("SET TimeZone = 'UTC'")
+    # DuckDB draws a progress bar on stdout during long statements, which would corrupt --json.
+    conn.execute("SET enable_progress_bar = false")
+
+
+def side_connection(conn: duckdb.DuckDBPyConnection) -> duckdb.DuckDBPyConnection:
+    """A second connection to the same workspace, for a stage run in another thread.
+
+    It shares the database (and its memory limit) but has its own transactions, temp tables and
+    registered views; close it when done.
+    """
+    side = conn.cursor()
+    _session_settings(side)
+    return side
 
 
 def current_version(conn: duckdb.DuckDBPyConnection) -> int:

@@ -109,3 +109,77 @@ def test_rerunning_a_review_changes_nothing(demo, tmp_path) -> None:
     assert again.index_reused and again.scored_now == 0
     assert again.totals == result.totals
     del duckdb
+
+
+STAGE_TABLES = {
+    "clusters": "cluster_id",
+    "cluster_members": "query",
+    "proposals": "proposal_id",
+    "proposal_examples": "proposal_id, query, other_query",
+}
+
+
+def stage_rows(conn, review_id: str) -> dict[str, list[tuple]]:
+    return {
+        table: conn.execute(
+            f"SELECT * FROM {table} WHERE review_id = ? ORDER BY {order}", [review_id]
+        ).fetchall()
+        for table, order in STAGE_TABLES.items()
+    }
+
+
+def test_clusters_and_proposals_made_side_by_side_equal_those_made_in_turn(demo, tmp_path) -> None:
+    import shutil
+
+    from querygap.clustering import run_clusters
+    from querygap.proposals import propose
+    from querygap.windows import iso_week
+    from querygap.workspace import connect, transaction
+
+    result, _, root = demo
+    shutil.copy(root / "ws.duckdb", tmp_path / "ws.duckdb")
+    conn = connect(tmp_path / "ws.duckdb")
+    side_by_side = stage_rows(conn, result.review_id)
+    with transaction(conn):
+        run_clusters(conn, iso_week(result.review_id), result.index_id)
+    propose(conn, result.review_id)
+    in_turn = stage_rows(conn, result.review_id)
+    conn.close()
+    assert all(side_by_side[t] for t in ("clusters", "cluster_members", "proposals"))
+    assert side_by_side == in_turn
+
+
+@pytest.mark.parametrize("failing", ["run_clusters", "propose"])
+def test_a_failing_cluster_or_proposal_stage_stops_the_review(
+    demo, tmp_path, monkeypatch, failing: str
+) -> None:
+    import shutil
+
+    import querygap.review as review
+    from querygap.settings import ReviewSettings
+    from querygap.windows import iso_week
+    from querygap.workspace import connect
+
+    result, _, root = demo
+    shutil.copy(root / "ws.duckdb", tmp_path / "ws.duckdb")
+    conn = connect(tmp_path / "ws.duckdb")
+    before = stage_rows(conn, result.review_id)
+    calls = []
+
+    def broken(stage_conn, *args, **kwargs):
+        calls.append(failing)
+        if failing == "run_clusters":  # inside the stage's transaction: rolled back
+            stage_conn.execute("DELETE FROM cluster_members")
+            stage_conn.execute("DELETE FROM clusters")
+        raise RuntimeError(f"{failing} broke")
+
+    monkeypatch.setattr(review, failing, broken)
+    with pytest.raises(RuntimeError, match=f"{failing} broke"):
+        review.run_review(conn, iso_week(result.review_id), ReviewSettings(), tmp_path / "out")
+    after = stage_rows(conn, result.review_id)
+    conn.close()
+    assert calls == [failing]
+    # The broken stage left its tables as they were; the other one ran to its end (a rerun
+    # stores the same rows).
+    assert after == before
+    assert not (tmp_path / "out" / "failing_queries.csv").exists()
