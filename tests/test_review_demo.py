@@ -183,3 +183,24 @@ def test_a_failing_cluster_or_proposal_stage_stops_the_review(
     # stores the same rows).
     assert after == before
     assert not (tmp_path / "out" / "failing_queries.csv").exists()
+
+
+def test_proposals_refuse_a_review_of_another_index_or_none(demo, tmp_path) -> None:
+    import shutil
+
+    from querygap.errors import StageOrderError
+    from querygap.proposals import propose
+    from querygap.workspace import connect
+
+    result, _, root = demo
+    shutil.copy(root / "ws.duckdb", tmp_path / "ws.duckdb")
+    conn = connect(tmp_path / "ws.duckdb")
+    with pytest.raises(StageOrderError, match="does not exist"):
+        propose(conn, "1999-W01")
+    conn.execute("UPDATE reviews SET index_id = 'elsewhere' WHERE review_id = ?", [result.review_id])
+    with pytest.raises(StageOrderError, match=f"against index elsewhere.*is {result.index_id}"):
+        propose(conn, result.review_id)
+    conn.execute("UPDATE indexes SET current = false")
+    with pytest.raises(StageOrderError, match="no index yet"):
+        propose(conn, result.review_id)
+    conn.close()
