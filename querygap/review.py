@@ -206,18 +206,26 @@ def run_review(
     result.bots = bots
     result.clusters = top_clusters(conn, window.review_id, CLUSTERS_IN_RESULT).to_dict("records")
     if out_dir is not None:
-        from querygap.report import write_report  # the report reads this module's exports
+        from querygap.report import prepare_report, write_prepared  # it reads this module's exports
 
         t0 = time.perf_counter()
-        say("export")
-        result.failing_csv = export_failing(conn, window.review_id, index_id, out_dir)
-        result.proposal_files = write_proposal_files(conn, window.review_id, index_id, out_dir)
-        result.clusters_csv = export_clusters(conn, window.review_id, out_dir)
-        timings["export"] = time.perf_counter() - t0
-        t0 = time.perf_counter()
-        say("report")
-        result.report_html = write_report(conn, window.review_id, out_dir)
-        timings["report"] = time.perf_counter() - t0
+        # The report's figures and charts are read on a second connection in a thread while the
+        # export files are written; the page, which links the exports present, comes last.
+        say("export + report")
+        side = side_connection(conn)
+        try:
+            with ThreadPoolExecutor(max_workers=1) as pool:
+                report = pool.submit(prepare_report, side, window.review_id)
+                result.failing_csv = export_failing(conn, window.review_id, index_id, out_dir)
+                result.proposal_files = write_proposal_files(
+                    conn, window.review_id, index_id, out_dir
+                )
+                result.clusters_csv = export_clusters(conn, window.review_id, out_dir)
+                prepared = report.result()
+        finally:
+            side.close()
+        result.report_html = write_prepared(prepared, out_dir)
+        timings["export + report"] = time.perf_counter() - t0
     return result
 
 

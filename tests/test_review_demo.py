@@ -197,7 +197,9 @@ def test_proposals_refuse_a_review_of_another_index_or_none(demo, tmp_path) -> N
     conn = connect(tmp_path / "ws.duckdb")
     with pytest.raises(StageOrderError, match="does not exist"):
         propose(conn, "1999-W01")
-    conn.execute("UPDATE reviews SET index_id = 'elsewhere' WHERE review_id = ?", [result.review_id])
+    conn.execute(
+        "UPDATE reviews SET index_id = 'elsewhere' WHERE review_id = ?", [result.review_id]
+    )
     with pytest.raises(StageOrderError, match=f"against index elsewhere.*is {result.index_id}"):
         propose(conn, result.review_id)
     conn.execute("UPDATE indexes SET current = false")
