@@ -23,7 +23,7 @@ from querygap.errors import InputError
 from querygap.pagetext import (
     ParsedPage,
     decode_page,
-    parse_body,
+    parse_bodies,
     parse_html,
     parse_markdown,
     parse_plain,
@@ -213,7 +213,7 @@ def load_content(
     elif path.suffix.lower() in EXPORT_SUFFIXES:
         frame = read_export(path)
         read = len(frame)
-        ids, urls, pages = [], [], []
+        ids, urls, titles, bodies = [], [], [], []
         seen: set[str] = set()
         for line, row in enumerate(frame.itertuples(index=False), start=2):
             doc = str(row.id or "").strip()
@@ -223,12 +223,15 @@ def load_content(
                 )
                 continue
             seen.add(doc)
-            body = parse_body(str(row.body or ""))
-            title = str(row.title or "").strip()
-            pages.append(ParsedPage(title or body.title, body.headings, body.blocks))
+            bodies.append(str(row.body or ""))
+            titles.append(str(row.title or "").strip())
             ids.append(f"{source}:{doc}")
             url = getattr(row, "url", None) if "url" in frame.columns else None
             urls.append(str(url) if url else options.base_url + doc)
+        pages = [
+            ParsedPage(title or body.title, body.headings, body.blocks)
+            for title, body in zip(titles, parse_bodies(bodies), strict=True)
+        ]
     else:
         raise InputError(
             f"{path}: content is a folder of pages or an export file ({', '.join(EXPORT_SUFFIXES)})"

@@ -131,3 +131,20 @@ def test_squeezed_spacing_equals_the_regular_expression() -> None:
     texts = ["".join(rnd.choices(alphabet, k=rnd.randint(0, 40))) for _ in range(5000)]
     texts += ["", " ", "a" + " " * 33 + "b", "\u200b\u200b", "x \t\u00a0 y"]
     assert [_squeeze(t) for t in texts] == [spacing.sub(" ", t) for t in texts]
+
+
+def test_bodies_parsed_in_worker_processes_equal_those_parsed_here(monkeypatch) -> None:
+    from querygap import pagetext
+
+    texts = [
+        f"<html><head><title>Page {i}</title></head><body><nav>menu</nav><h2>Part {i}</h2>"
+        f"<p>text {i} &amp; more</p></body></html>"
+        if i % 3
+        else f"plain page {i}\n\nsecond paragraph"
+        for i in range(23)
+    ]
+    monkeypatch.setattr(pagetext, "PARALLEL_BODIES", 10)
+    monkeypatch.setattr(pagetext, "_PART", 4)  # six parts: their order must be kept
+    shared = pagetext.parse_bodies(texts, workers=2)
+    assert shared == [pagetext.parse_body(t) for t in texts]
+    assert shared[4].title == "Page 4" and shared[4].headings == ("Part 4",)
