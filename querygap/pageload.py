@@ -14,6 +14,7 @@ import os
 import re
 from collections import Counter
 from dataclasses import dataclass
+from functools import partial
 from pathlib import Path
 
 import duckdb
@@ -23,6 +24,7 @@ from querygap.errors import InputError
 from querygap.pagetext import (
     ParsedPage,
     decode_page,
+    in_processes,
     parse_bodies,
     parse_html,
     parse_markdown,
@@ -201,9 +203,9 @@ def load_content(
         files, rejects = walk_pages(path)
         read = len(files) + len(rejects)
         ids, urls, pages = [], [], []
-        for f in files:
+        every = in_processes(partial(parse_file, max_bytes=options.max_page_bytes), files)
+        for f, parsed in zip(files, every, strict=True):
             rel = f.relative_to(path).as_posix()
-            parsed = parse_file(f, options.max_page_bytes)
             if isinstance(parsed, str):
                 rejects.append((rel, parsed))
                 continue

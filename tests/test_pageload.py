@@ -79,7 +79,13 @@ def test_reload_skips_unchanged_and_marks_gone(conn, tmp_path) -> None:
     assert status["site:bills/p0.html"] == "gone"
 
 
-def test_bad_files_are_listed_not_lost(conn, tmp_path) -> None:
+@pytest.mark.parametrize("in_workers", [False, True])
+def test_bad_files_are_listed_not_lost(conn, tmp_path, monkeypatch, in_workers: bool) -> None:
+    from querygap import pagetext
+
+    if in_workers:  # the files are read and parsed in worker processes
+        monkeypatch.setattr(pagetext, "PARALLEL_BODIES", 1)
+        monkeypatch.setattr(pagetext, "_PART", 3)
     site = make_site(tmp_path / "site")
     (site / "logo.png").write_bytes(b"\x89PNG\r\n\x1a\n\x00\x00")
     (site / "blob.html").write_bytes(b"<html>\x00\x00\x00binary")
@@ -93,6 +99,10 @@ def test_bad_files_are_listed_not_lost(conn, tmp_path) -> None:
     assert "no text left" in reasons["empty.html"] and "no text left" in reasons["navonly.html"]
     assert reasons["loop"] == "symlinked folder, not followed"
     assert result.read == result.added + result.changed + result.unchanged + result.rejected
+    assert result.added == 6
+    assert conn.execute("SELECT count(*) FROM documents WHERE title LIKE 'Topic %'").fetchall() == [
+        (6,)
+    ]
 
 
 def test_export_csv(conn, tmp_path) -> None:
