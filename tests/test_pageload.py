@@ -85,7 +85,6 @@ def test_bad_files_are_listed_not_lost(conn, tmp_path, monkeypatch, in_workers: 
 
     if in_workers:  # the files are read and parsed in worker processes
         monkeypatch.setattr(pagetext, "PARALLEL_BODIES", 1)
-        monkeypatch.setattr(pagetext, "_PART", 3)
     site = make_site(tmp_path / "site")
     (site / "logo.png").write_bytes(b"\x89PNG\r\n\x1a\n\x00\x00")
     (site / "blob.html").write_bytes(b"<html>\x00\x00\x00binary")
@@ -143,7 +142,7 @@ def test_squeezed_spacing_equals_the_regular_expression() -> None:
     assert [_squeeze(t) for t in texts] == [spacing.sub(" ", t) for t in texts]
 
 
-def test_bodies_parsed_in_worker_processes_equal_those_parsed_here(monkeypatch) -> None:
+def test_bodies_parsed_in_helper_processes_equal_those_parsed_here(monkeypatch) -> None:
     from querygap import pagetext
 
     texts = [
@@ -154,7 +153,20 @@ def test_bodies_parsed_in_worker_processes_equal_those_parsed_here(monkeypatch) 
         for i in range(23)
     ]
     monkeypatch.setattr(pagetext, "PARALLEL_BODIES", 10)
-    monkeypatch.setattr(pagetext, "_PART", 4)  # six parts: their order must be kept
-    shared = pagetext.parse_bodies(texts, workers=2)
+    shared = pagetext.parse_bodies(texts, workers=3)  # this process and two helpers, in order
     assert shared == [pagetext.parse_body(t) for t in texts]
     assert shared[4].title == "Page 4" and shared[4].headings == ("Part 4",)
+    assert shared[21].title == "plain page 21"
+
+
+def test_a_failing_helper_process_has_its_share_parsed_here(monkeypatch) -> None:
+    import sys
+
+    from querygap import pagetext
+
+    texts = [f"<p>page {i}</p>" for i in range(12)]
+    monkeypatch.setattr(pagetext, "PARALLEL_BODIES", 10)
+    monkeypatch.setattr(sys, "executable", "/bin/false")  # the helper exits at once, status 1
+    with pytest.warns(RuntimeWarning, match="helper process failed"):
+        shared = pagetext.parse_bodies(texts, workers=2)
+    assert shared == [pagetext.parse_body(t) for t in texts]
