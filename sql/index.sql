@@ -52,6 +52,9 @@ SELECT term_id, term, df, idf FROM terms WHERE index_id = $index_id ORDER BY ter
 SELECT doc_row, doc_id FROM doc_rows WHERE index_id = $index_id ORDER BY doc_row;
 
 -- name: index_vectors
--- The page vectors in row-major order (CSR order).
+-- The page vectors in stored order, which index_store_doc_terms writes in CSR order (rows
+-- ascending, terms ascending within a row); DuckDB keeps insertion order for a plain scan.
+-- No ORDER BY: sorting 14.5M rows took 0.7 s against 0.4 s and left about 0.5 GB resident after
+-- the result was freed. indexing.csr_of_sorted checks the order and sorts when it is not kept.
 -- $index_id: the index
-SELECT doc_row, term_id, weight FROM doc_terms WHERE index_id = $index_id ORDER BY doc_row, term_id;
+SELECT doc_row, term_id, weight FROM doc_terms WHERE index_id = $index_id;

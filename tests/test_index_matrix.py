@@ -1,4 +1,5 @@
-"""indexing.csr_of_sorted against scipy's own COO -> CSR conversion (the reference)."""
+"""indexing.csr_of_sorted and load_index against scipy's own COO -> CSR conversion (the
+reference)."""
 
 from __future__ import annotations
 
@@ -6,7 +7,8 @@ import numpy as np
 import pytest
 import scipy.sparse as sp
 
-from querygap.indexing import csr_of_sorted
+from querygap.indexing import IndexSettings, build_index, csr_of_sorted, load_index
+from querygap.pageload import ContentOptions, load_content
 
 
 def _reference(rows: np.ndarray, cols: np.ndarray, vals: np.ndarray, shape: tuple[int, int]):
@@ -40,3 +42,40 @@ def test_csr_of_triples_equals_scipy(order: str) -> None:
 def test_a_row_outside_the_shape_is_refused_as_scipy_refuses_it() -> None:
     with pytest.raises(ValueError):
         csr_of_sorted(np.array([0, 5]), np.array([0, 1]), np.ones(2), (3, 3))
+
+
+def test_the_index_loads_the_same_whatever_order_its_rows_are_stored_in(conn, tmp_path) -> None:
+    """index_vectors reads doc_terms in stored order (no ORDER BY); rows stored out of CSR order
+    still give the matrix scipy builds from the same triples."""
+    pages = tmp_path / "pages.csv"
+    pages.write_text(
+        "id,title,body\n"
+        "a,Water meters,Read your water meter and report the reading\n"
+        "b,Bills,Pay your bill online or by direct debit\n"
+        "c,Leaks,Report a leak in the street or a burst pipe\n"
+        "d,Moving home,Tell us when you move so the meter is read\n",
+        encoding="utf-8",
+    )
+    load_content(conn, pages, ContentOptions(source="site"))
+    build_index(conn, IndexSettings())
+    conn.execute(
+        "CREATE TEMP TABLE shuffled AS SELECT * FROM doc_terms ORDER BY hash(doc_row, term_id)"
+    )
+    conn.execute("DELETE FROM doc_terms")
+    conn.execute("INSERT INTO doc_terms SELECT * FROM shuffled")
+    stored = conn.execute("SELECT doc_row, term_id, weight FROM doc_terms").fetchnumpy()
+    rows, cols = stored["doc_row"].astype(np.int64), stored["term_id"].astype(np.int64)
+    assert not (np.diff(rows * 10_000 + cols) > 0).all()  # the stored order is not CSR order
+    got = load_index(conn).vectors
+    want = _reference(rows, cols, stored["weight"], got.shape)
+    assert got.has_sorted_indices
+    np.testing.assert_array_equal(got.indptr, want.indptr)
+    np.testing.assert_array_equal(got.indices, want.indices)
+    np.testing.assert_array_equal(got.data, want.data)
+
+
+def test_workspace_connections_give_freed_memory_back(conn) -> None:
+    # Without the allocator's background thread, DuckDB kept about 0.5 GB resident after a
+    # 14.5M-row sorted result was freed (workspace.connect).
+    setting = conn.execute("SELECT current_setting('allocator_background_threads')").fetchall()
+    assert setting == [(True,)]
