@@ -206,3 +206,32 @@ def test_proposals_refuse_a_review_of_another_index_or_none(demo, tmp_path) -> N
     with pytest.raises(StageOrderError, match="no index yet"):
         propose(conn, result.review_id)
     conn.close()
+
+
+def test_files_of_a_review_equal_those_written_in_turn(demo, tmp_path) -> None:
+    # The review reads the report's figures on a second connection while it writes the exports;
+    # written in turn afterwards, every file is the same.
+    import shutil
+
+    from querygap.proposal_files import write_proposal_files
+    from querygap.report import write_report
+    from querygap.review import export_clusters, export_failing
+    from querygap.workspace import connect
+
+    result, _, root = demo
+    shutil.copy(root / "ws.duckdb", tmp_path / "ws.duckdb")
+    conn = connect(tmp_path / "ws.duckdb")
+    again = tmp_path / "again"
+    export_failing(conn, result.review_id, result.index_id, again)
+    write_proposal_files(conn, result.review_id, result.index_id, again)
+    export_clusters(conn, result.review_id, again)
+    write_report(conn, result.review_id, again)
+    conn.close()
+    side_by_side = root / "reports" / result.review_id
+    names = sorted(p.relative_to(again).as_posix() for p in again.rglob("*") if p.is_file())
+    assert "failing_queries.csv" in names and "index.html" in names
+    assert names == sorted(
+        p.relative_to(side_by_side).as_posix() for p in side_by_side.rglob("*") if p.is_file()
+    )
+    for name in names:
+        assert (again / name).read_bytes() == (side_by_side / name).read_bytes(), name
