@@ -18,6 +18,7 @@ from querygap.clustering import (
     cluster_queries,
     deletion_keys_of,
     gram_matrix,
+    key_terms,
     nearest_words,
     similar_pairs,
     spelling_pairs,
@@ -340,3 +341,31 @@ def test_previous_volumes_match_the_searches_counted_by_pandas(
     got = stored.set_index("cluster_id")["previous_searches"]
     assert got.sort_index().tolist() == want.reindex(got.index).sort_index().tolist()
     assert want.sum() > 0
+
+
+def _key_terms_by_pandas(n: int, searches: np.ndarray, terms: pd.DataFrame) -> np.ndarray:
+    # Reference: the rule written with pandas' own sort and de-duplication.
+    keys = np.full(n, None, dtype=object)
+    t = terms[["qi", "term", "df"]].drop_duplicates(["qi", "term"])
+    volume = pd.Series(searches[t["qi"].to_numpy()], index=t.index).groupby(t["term"]).sum()
+    t = t.assign(volume=t["term"].map(volume))
+    t = t.sort_values(["qi", "volume", "df", "term"], ascending=[True, False, True, True])
+    first = t.drop_duplicates("qi")
+    keys[first["qi"].to_numpy()] = first["term"].to_numpy(object)
+    return keys
+
+
+@pytest.mark.parametrize("seed", range(5))
+def test_key_terms_equal_pandas_sort(seed: int) -> None:
+    rng = np.random.default_rng(seed)
+    words = np.array(["sewer", "sewage", "bill", "Zebra", "éclair", "a", "meter", "meters"])
+    n = 60
+    rows = 300
+    df_of = {w: int(rng.integers(0, 3)) for w in words}
+    terms = pd.DataFrame({"qi": rng.integers(0, n - 5, rows), "term": rng.choice(words, rows)})
+    terms["df"] = terms["term"].map(df_of)
+    searches = rng.integers(1, 4, n)
+    got = key_terms(n, searches, terms)
+    want = _key_terms_by_pandas(n, searches, terms)
+    assert list(got) == list(want)
+    assert got[-1] is None  # queries without unmatched terms have no key
