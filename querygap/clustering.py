@@ -226,17 +226,14 @@ def nearest_words(
     ok = (dist >= 1) & (dist <= edit_limit(_lengths(terms)[a])) & words_ok[b]
     if not ok.any():
         return best, examined
-    cand = pd.DataFrame(
-        {
-            "a": a[ok],
-            "b": b[ok],
-            "dist": dist[ok],
-            "df": vocabulary["df"].to_numpy(np.int64)[b[ok]],
-            "word": words[b[ok]],
-        }
-    ).sort_values(["a", "dist", "df", "word"], ascending=[True, True, False, True])
-    first = cand.drop_duplicates("a")
-    best[first["a"].to_numpy()] = first["b"].to_numpy()
+    a, b, dist = a[ok], b[ok], dist[ok]
+    df = vocabulary["df"].to_numpy(np.int64)[b]
+    word_rank, _ = pd.factorize(words[b], sort=True)  # rises as the words do
+    # Integer keys only: a frame sorted by its word column took 1.4 s at size M.
+    order = np.lexsort((word_rank, -df, dist, a))
+    a, b = a[order], b[order]
+    head = np.r_[True, a[1:] != a[:-1]]
+    best[a[head]] = b[head]
     return best, examined
 
 
