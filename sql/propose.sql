@@ -89,15 +89,19 @@ WITH qt AS (
     SELECT r.query, r.status, r.searches, t.term, t.df, t.in_best
     FROM review_queries r JOIN query_terms t ON t.index_id = $index_id AND t.query = r.query
     WHERE r.review_id = $review_id
+), terms_of AS (
+    -- each query's terms sorted, once (a query's terms are distinct in query_terms); a query of
+    -- one term has no context
+    SELECT query, list_sort(list(term)) AS terms FROM qt GROUP BY query HAVING count(*) > 1
 ), ctx AS (
-    -- list() then list_sort, not string_agg(... ORDER BY): the same text, 7.1 s -> 5.0 s at M
+    -- a term's context: its query's other terms. A list filter, not a self-join of qt grouped
+    -- back per term: the same rows, 5.0 s -> 3.1 s at M
     SELECT a.query, a.status, a.searches, a.term, a.df, a.in_best,
-           array_to_string(list_sort(list(b.term)), ' ') AS context
-    FROM qt a JOIN qt b ON b.query = a.query AND b.term <> a.term
+           array_to_string(list_filter(q.terms, lambda x: x <> a.term), ' ') AS context
+    FROM qt a JOIN terms_of q ON q.query = a.query
     -- only the rows the two sides below read: an ok query's content terms, a failing query's
     -- unmatched terms (9.4 s -> 6.9 s at M, where 77% of the queries fail)
     WHERE (a.status = 'ok' AND a.df > 0) OR (a.status <> 'ok' AND (a.df = 0 OR NOT a.in_best))
-    GROUP BY a.query, a.status, a.searches, a.term, a.df, a.in_best
 ), ok_ctx AS (
     SELECT * FROM ctx WHERE status = 'ok' AND df > 0
     QUALIFY count(*) OVER (PARTITION BY context) <= $max_context_terms

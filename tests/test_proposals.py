@@ -349,3 +349,67 @@ def test_common_contexts_are_capped_so_the_join_stays_linear(tmp_path: Path) -> 
         ["bill", "fee", "tax", "due", "rent", "cost"]
     )
     assert dropped.loc[dropped["term_from"] == "invoice"].empty
+
+
+def _contexts_by_pandas(queries: pd.DataFrame, cap: int) -> pd.DataFrame:
+    # Reference: the rule of propose_contexts written with pandas and Python's sorted().
+    rows = queries.copy()
+    others = rows.groupby("query")["term"].agg(list)
+    rows = rows[rows["query"].map(others.map(len)) > 1]
+    rows["context"] = [
+        " ".join(sorted(t for t in others[q] if t != term))
+        for q, term in zip(rows["query"], rows["term"], strict=True)
+    ]
+    ok = rows[(rows["status"] == "ok") & (rows["df"] > 0)]
+    ok = ok[ok.groupby("context")["term"].transform("size") <= cap]
+    failing = rows[(rows["status"] != "ok") & ((rows["df"] == 0) | ~rows["in_best"])]
+    pairs = failing.merge(ok, on="context", suffixes=("_f", "_o"))
+    pairs = pairs[pairs["term_f"] != pairs["term_o"]]
+    out = pairs.groupby(["term_f", "term_o"], as_index=False).agg(
+        contexts=("context", "nunique"),
+        query=("query_f", "min"),
+        other_query=("query_o", "min"),
+        other_searches=("searches_o", "sum"),
+    )
+    return out.rename(columns={"term_f": "term_from", "term_o": "term_to"})
+
+
+@pytest.mark.parametrize("seed", range(3))
+def test_shared_contexts_equal_the_rule_written_with_pandas(tmp_path: Path, seed: int) -> None:
+    from querygap.workspace import frame as read
+
+    rng = np.random.default_rng(seed)
+    words = ["pay", "bill", "invoice", "meter", "read", "water", "leak", "fee", "smart", "tax"]
+    rows = []
+    for i in range(150):
+        terms = rng.choice(words, rng.integers(1, 5), replace=False)
+        status, searches = rng.choice(["ok", "ok", "zero", "low"]), int(rng.integers(1, 9))
+        for pos, term in enumerate(terms):
+            df = int(rng.integers(0, 3))
+            in_best = bool(df and rng.random() < 0.6)
+            rows.append((f"q{i}", status, searches, pos, term, df, in_best))
+    queries = pd.DataFrame(
+        rows, columns=["query", "status", "searches", "position", "term", "df", "in_best"]
+    )
+    conn = connect(tmp_path / "ws.duckdb")
+    heads = queries.drop_duplicates("query")
+    conn.executemany(
+        "INSERT INTO review_queries VALUES ('R', ?, ?, ?, 1, ?, 0, 0, NULL, 0, 0, 0, 0)",
+        [
+            [q, q, int(n), s]
+            for q, n, s in heads[["query", "searches", "status"]].itertuples(index=False)
+        ],
+    )
+    conn.executemany(
+        "INSERT INTO query_terms VALUES ('ix', ?, ?, ?, ?, ?)",
+        queries[["query", "position", "term", "df", "in_best"]].values.tolist(),
+    )
+    got = read(
+        conn, "propose_contexts", {"review_id": "R", "index_id": "ix", "max_context_terms": 4}
+    )
+    conn.close()
+    want = _contexts_by_pandas(queries, 4).sort_values(["term_from", "term_to"])
+    assert len(want) > 10  # the check compares something
+    pd.testing.assert_frame_equal(
+        got.reset_index(drop=True), want.reset_index(drop=True), check_dtype=False
+    )
