@@ -42,7 +42,8 @@ FROM searches;
 -- search, searches, first_us, last_us, peak_per_minute, peak_per_hour, median_gap_s); writes
 -- the temporary table session_named. A session key's session is 's:<key>'; the n-th session of
 -- a user key 'u:<key>:<n>'; a search with neither key 'r:<file_id>:<line>'. The actor key is the
--- first search's user key, else its session key. Keys are shown as their 16 hex digits.
+-- first search's user key, else its session key. Keys are shown as their 16 hex digits. Only
+-- the numbers are kept: session_traffic spells the names when they are read (schema 13).
 -- Three criteria, each with a human limit and a bot limit (a session beyond a bot limit is 'bot';
 -- beyond a human limit only, 'suspect'; else 'human'): searches within any 60 s, searches within
 -- any 3600 s, and the median gap between consecutive searches (only for sessions of at least
@@ -56,10 +57,9 @@ FROM searches;
 -- $min_searches: fewest searches for the median-gap criterion to apply
 CREATE OR REPLACE TEMP TABLE session_named AS
 SELECT f.session,
-       CASE WHEN NOT f.has_key THEN 'r:' || f.file_id || ':' || f.line
-            WHEN NOT f.is_user THEN 's:' || printf('%016x', f.key)
-            ELSE 'u:' || printf('%016x', f.key) || ':' || f.number END AS session_id,
-       CASE WHEN f.has_key THEN printf('%016x', f.actor_key) END AS actor_key,
+       (CASE WHEN NOT f.has_key THEN 0 WHEN NOT f.is_user THEN 1 ELSE 2 END)::UTINYINT AS kind,
+       CASE WHEN f.has_key THEN f.key END AS key, f.number, f.file_id, f.line,
+       CASE WHEN f.has_key THEN f.actor_key END AS actor,
        f.searches, make_timestamptz(f.first_us) AS first_at, make_timestamptz(f.last_us) AS last_at,
        f.peak_per_minute, f.peak_per_hour, f.median_gap_s,
        CASE WHEN f.peak_per_minute > $bot_per_minute OR f.peak_per_hour > $bot_per_hour
@@ -73,11 +73,11 @@ FROM session_figures f;
 -- name: sessions_traffic
 -- Rate figures and verdict of every session. Reads session_named; writes session_traffic.
 INSERT INTO session_traffic (
-    session, session_id, actor_key, searches, first_at, last_at, peak_per_minute, peak_per_hour,
-    median_gap_s, verdict
+    session, kind, key, number, file_id, line, actor, searches, first_at, last_at,
+    peak_per_minute, peak_per_hour, median_gap_s, verdict
 )
-SELECT session, session_id, actor_key, searches, first_at, last_at, peak_per_minute, peak_per_hour,
-       median_gap_s, verdict
+SELECT session, kind, key, number, file_id, line, actor, searches, first_at, last_at,
+       peak_per_minute, peak_per_hour, median_gap_s, verdict
 FROM session_named;
 
 -- name: sessions_assign
@@ -104,9 +104,13 @@ WHERE n.verdict <> 'bot';
 DROP TABLE IF EXISTS session_named;
 
 -- name: sessions_summary
--- Sessions, searches and distinct actor keys per verdict.
+-- Sessions, searches and distinct actor keys per verdict. A session with neither key is an
+-- actor of its own: count(DISTINCT coalesce(actor_key, session_id)), counted on the numbers the
+-- names are spelled from.
 SELECT verdict, count(*) AS sessions, sum(searches)::BIGINT AS searches,
-       count(DISTINCT coalesce(actor_key, session_id)) AS keys
+       (count(DISTINCT coalesce(legacy_actor, legacy_id))
+        + count(DISTINCT actor) FILTER (WHERE legacy_id IS NULL)
+        + count(*) FILTER (WHERE legacy_id IS NULL AND actor IS NULL)) AS keys
 FROM session_traffic GROUP BY verdict ORDER BY verdict;
 
 -- name: sessions_clear_review_bots

@@ -280,3 +280,22 @@ def test_demo_review_reconciles_with_bots(demo_db: Path) -> None:
     conn.close()
     assert bots > 0
     assert counted + bots == window_searches
+
+
+def test_summary_counts_actors_as_the_spelled_names_do(conn: duckdb.DuckDBPyConnection) -> None:
+    # The summary counts actors on the numbers the names are spelled from (schema 13); counted on
+    # the names themselves (each session with neither key an actor of its own) it is the same.
+    rows = [{"at": i * 40, "user": "u1"} for i in range(3)]  # one user, two sessions
+    rows += [{"at": 4000, "user": "u1"}, {"at": 10, "session": "s1"}, {"at": 20, "session": "s2"}]
+    rows += [{"at": 30 + i} for i in range(3)]  # neither key: three sessions of their own
+    rows += [{"at": 50 + i, "user": "bot"} for i in range(40)]  # a burst: a bot
+    add_searches(conn, rows)
+    build_sessions(conn)
+    by_names = conn.execute(
+        "SELECT verdict, count(*), sum(searches)::BIGINT, "
+        "count(DISTINCT coalesce(actor_key, session_id)) FROM session_traffic "
+        "GROUP BY verdict ORDER BY verdict"
+    ).fetchall()
+    summary = run(conn, "sessions_summary").fetchall()
+    assert by_names == [("bot", 1, 40, 1), ("human", 7, 9, 6)]
+    assert summary == by_names

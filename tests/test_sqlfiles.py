@@ -8,7 +8,7 @@ import duckdb
 import pytest
 
 from querygap.errors import SchemaError, WorkspaceBusyError
-from querygap.sqlfiles import SQL_DIR, all_statements, parse_sql_text
+from querygap.sqlfiles import SQL_DIR, all_statements, parse_sql_text, statement
 from querygap.workspace import (
     connect,
     current_version,
@@ -97,6 +97,29 @@ def test_version_11_sessions_get_one_number_per_name(tmp_path: Path) -> None:
     conn.close()
     assert len(numbers) == 4 and numbers[0] == numbers[2] and len(set(numbers)) == 3
     assert named == {"u:b:1": numbers[0], "s:a": numbers[1]}
+
+
+def test_version_12_session_names_read_the_same_after_version_13(tmp_path: Path) -> None:
+    path = tmp_path / "ws.duckdb"
+    old = workspace_at(path, 12)
+    stored = [("s:00000000000000aa", "00000000000000aa"), ("r:1:5", None), ("u:b:2", "b")]
+    for session, (name, actor) in enumerate(stored):
+        old.execute(
+            "INSERT INTO session_traffic (session_id, actor_key, searches, first_at, last_at, "
+            "peak_per_minute, peak_per_hour, median_gap_s, verdict, session) VALUES (?, ?, 1, "
+            "TIMESTAMPTZ '2026-11-02 08:00:00+00', TIMESTAMPTZ '2026-11-02 08:00:00+00', 1, 1, "
+            "NULL, 'human', ?)",
+            [name, actor, session],
+        )
+    old.close()
+    conn = connect(path)
+    read = conn.execute(
+        "SELECT session_id, actor_key FROM session_traffic ORDER BY session"
+    ).fetchall()
+    summary = conn.execute(statement("sessions_summary").sql).fetchall()
+    conn.close()
+    assert read == stored
+    assert summary == [("human", 3, 3, 3)]
 
 
 def test_version_9_visitor_keys_migrate_to_the_numbers_their_hex_digits_spell(
