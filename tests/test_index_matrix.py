@@ -4,6 +4,7 @@ reference)."""
 from __future__ import annotations
 
 import numpy as np
+import pandas as pd
 import pytest
 import scipy.sparse as sp
 
@@ -79,3 +80,39 @@ def test_workspace_connections_give_freed_memory_back(conn) -> None:
     # 14.5M-row sorted result was freed (workspace.connect).
     setting = conn.execute("SELECT current_setting('allocator_background_threads')").fetchall()
     assert setting == [(True,)]
+
+
+@pytest.mark.parametrize("as_arrow", [False, True])
+def test_pages_analyzed_in_parts_count_as_analyzed_at_once(monkeypatch, as_arrow: bool) -> None:
+    # Reference: scikit-learn's CountVectorizer with our analyzer, on the whole texts at once.
+    import pyarrow as pa
+    from sklearn.feature_extraction.text import CountVectorizer
+
+    import querygap.indexing as indexing
+    from querygap.analyzer import analyze
+
+    rng = np.random.default_rng(4)
+    words = ["Water", "meter", "bill", "leak", "sewer", "Café", "wi-fi", "c++", "v2.1", "the"]
+    pages = pd.DataFrame(
+        {
+            "doc_id": [f"d{i}" for i in range(40)],
+            "title": [" ".join(rng.choice(words, 2)) for _ in range(40)],
+            "headings": [" ".join(rng.choice(words, 3)) for _ in range(40)],
+            "body": [" ".join(rng.choice(words, rng.integers(0, 12))) for _ in range(40)],
+        }
+    )
+    data = pa.Table.from_pandas(pages) if as_arrow else pages
+    settings = IndexSettings(title_weight=0.3, heading_weight=0.7)
+    whole, vocab = indexing.field_counts(data, settings)
+    monkeypatch.setattr(indexing, "PART_TEXTS", 3)
+    monkeypatch.setattr(indexing.os, "cpu_count", lambda: 4)
+    parts, vocab_parts = indexing.field_counts(data, settings)
+    assert list(vocab_parts) == list(vocab)
+    assert (parts != whole).nnz == 0  # the same weighted counts, bit for bit
+    counter = CountVectorizer(analyzer=analyze, vocabulary=list(vocab))
+    want = (
+        counter.transform(pages["body"])
+        + 0.3 * counter.transform(pages["title"])
+        + 0.7 * counter.transform(pages["headings"])
+    )
+    np.testing.assert_allclose(parts.toarray(), want.toarray(), rtol=1e-12)
