@@ -26,7 +26,7 @@ import pandas as pd
 import pyarrow as pa
 import scipy.sparse as sp
 
-from querygap.analyzer import analyze_series
+from querygap.analyzer import Analyzed, _ranks, analyze_codes
 from querygap.indexing import Index
 from querygap.scoring_kernel import top_k_rows as top_k_rows  # kept importable from here
 from querygap.scoring_kernel import top_k_scores
@@ -45,20 +45,44 @@ class QueryTerms:
     long: pd.DataFrame  # row, position, term, term_id (-1 when unknown)
 
 
+def _distinct_terms(found: Analyzed, index: Index) -> pd.DataFrame:
+    """Each query's distinct terms in the order they first occur: row, term, count, position
+    (0, 1, ... within the query), term_id (-1 when no page has the term).
+
+    Worked on the term codes: a pandas group-by of (row, term string) took 0.7 s of every 250k
+    queries at size M."""
+    n_codes = len(found.terms)
+    pair, first, count = np.unique(
+        found.rows * n_codes + found.codes, return_index=True, return_counts=True
+    )
+    order = np.argsort(first, kind="stable")  # occurrences come row by row, in reading order
+    pair, count = pair[order], count[order]
+    rows, codes = pair // n_codes, pair % n_codes
+    starts = np.flatnonzero(np.r_[True, rows[1:] != rows[:-1]])
+    sizes = np.diff(np.r_[starts, rows.size])
+    return pd.DataFrame(
+        {
+            "row": rows,
+            "term": found.terms[codes],
+            "count": count.astype(np.int64),
+            "position": _ranks(sizes),
+            "term_id": index.terms.get_indexer(found.terms)[codes],
+        }
+    )
+
+
 def query_terms(queries: pd.Series, index: Index) -> QueryTerms:
     """Analyze queries with the index's analyzer and split their terms into known and unknown."""
-    occ = analyze_series(queries.reset_index(drop=True), index.settings.analyzer)
+    found = analyze_codes(queries.reset_index(drop=True), index.settings.analyzer)
     n = len(queries)
-    if occ.empty:
+    if found.codes.size == 0:
         empty = sp.csr_matrix((n, len(index.terms)))
         return QueryTerms(
             empty,
             sp.csr_matrix((n, 0)),
             pd.DataFrame({"row": [], "position": [], "term": [], "term_id": [], "count": []}),
         )
-    distinct = occ.groupby(["row", "term"], sort=False).size().reset_index(name="count")
-    distinct["position"] = distinct.groupby("row").cumcount()
-    distinct["term_id"] = index.terms.get_indexer(distinct["term"])
+    distinct = _distinct_terms(found, index)
     known = distinct[distinct["term_id"] >= 0]
     unknown = distinct[distinct["term_id"] < 0]
     ucodes, _ = pd.factorize(unknown["term"])

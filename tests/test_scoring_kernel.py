@@ -349,3 +349,29 @@ def test_the_kernel_stays_in_its_arrays_on_zipf_pages(
     for x, y in zip(got, want, strict=True):
         np.testing.assert_array_equal(x, y)
     assert_top_k_is_the_cosine(q, d, *got, k, floor)
+
+
+def test_query_terms_are_each_querys_distinct_terms_in_first_seen_order() -> None:
+    # Reference: pandas' group-by of every term occurrence by (query, term), in order of first
+    # occurrence (sort=False), numbered within each query.
+    from querygap.analyzer import analyze_series
+
+    pages = pd.DataFrame(
+        {
+            "doc_id": ["a", "b"],
+            "title": ["Water meter", "Pay a bill"],
+            "headings": ["", ""],
+            "body": ["read the water meter", "pay the water bill online"],
+        }
+    )
+    index = index_of_pages(pages)
+    queries = pd.Series(
+        ["water water meter", "bill pay bill unknownword", "", "zz zz", "meter", "the the"]
+    )
+    got = query_terms(queries, index).long
+    occ = analyze_series(queries, index.settings.analyzer)
+    want = occ.groupby(["row", "term"], sort=False).size().reset_index(name="count")
+    want["position"] = want.groupby("row").cumcount()
+    want["term_id"] = index.terms.get_indexer(want["term"])
+    assert (want["count"] > 1).any() and (want["term_id"] < 0).any()  # repeats, unknown terms
+    pd.testing.assert_frame_equal(got, want, check_dtype=False)
