@@ -75,13 +75,6 @@ def test_the_index_loads_the_same_whatever_order_its_rows_are_stored_in(conn, tm
     np.testing.assert_array_equal(got.data, want.data)
 
 
-def test_workspace_connections_give_freed_memory_back(conn) -> None:
-    # Without the allocator's background thread, DuckDB kept about 0.5 GB resident after a
-    # 14.5M-row sorted result was freed (workspace.connect).
-    setting = conn.execute("SELECT current_setting('allocator_background_threads')").fetchall()
-    assert setting == [(True,)]
-
-
 @pytest.mark.parametrize("as_arrow", [False, True])
 def test_pages_analyzed_in_parts_count_as_analyzed_at_once(monkeypatch, as_arrow: bool) -> None:
     # Reference: scikit-learn's CountVectorizer with our analyzer, on the whole texts at once.

@@ -235,3 +235,35 @@ def test_files_of_a_review_equal_those_written_in_turn(demo, tmp_path) -> None:
     )
     for name in names:
         assert (again / name).read_bytes() == (side_by_side / name).read_bytes(), name
+
+
+def test_duckdb_cache_gives_way_while_clusters_and_proposals_are_made(demo, tmp_path, monkeypatch):
+    import shutil
+
+    import querygap.review as review
+    from querygap.settings import ReviewSettings
+    from querygap.windows import iso_week
+    from querygap.workspace import connect
+
+    result, _, root = demo
+    shutil.copy(root / "ws.duckdb", tmp_path / "ws.duckdb")
+    conn = connect(tmp_path / "ws.duckdb")
+    seen = []
+    propose = review.propose
+
+    def watched(stage_conn, *args, **kwargs):
+        seen.append(stage_conn.execute("SELECT current_setting('memory_limit')").fetchall()[0][0])
+        return propose(stage_conn, *args, **kwargs)
+
+    def limit_bytes(text: str) -> float:
+        number, unit = text.split()
+        return float(number) * {"KiB": 2**10, "MiB": 2**20, "GiB": 2**30}[unit]
+
+    monkeypatch.setattr(review, "propose", watched)
+    outside = conn.execute("SELECT current_setting('memory_limit')").fetchall()[0][0]
+    review.run_review(conn, iso_week(result.review_id), ReviewSettings(), None)
+    after = conn.execute("SELECT current_setting('memory_limit')").fetchall()[0][0]
+    conn.close()
+    assert after == outside
+    assert len(seen) == 1
+    assert limit_bytes(seen[0]) < limit_bytes(outside) / 2
