@@ -618,11 +618,25 @@ def term_order(postings: sp.csr_matrix) -> np.ndarray:
     return np.argsort(np.diff(postings.indptr), kind="stable")
 
 
-def _products_stay_normal(weights: sp.csr_matrix, postings: sp.csr_matrix) -> bool:
-    """True when every product q(t) w(t, d) > 0 is a normal float, so a sum never stays 0."""
-    if not weights.nnz or not postings.nnz:
+def _products_stay_normal(weights: sp.csr_matrix, least: float) -> bool:
+    """True when every product q(t) w(t, d) > 0 is a normal float, so a sum never stays 0
+    (``least``: the least page weight, 0.0 for no postings)."""
+    if not weights.nnz or least == 0.0:
         return True
-    return bool(weights.data.min() * postings.data.min() >= np.finfo(np.float64).tiny)
+    return bool(weights.data.min() * least >= np.finfo(np.float64).tiny)
+
+
+def renumbered(weights: sp.csr_matrix, number: np.ndarray) -> sp.csr_matrix:
+    """``weights`` with column t moved to ``number[t]`` (a permutation), zeros dropped,
+    duplicates summed and each row's columns sorted: what ``weights[:, order]`` gives, by a
+    lookup per stored entry (O(nnz)) where scipy's column indexing builds a selector matrix
+    as wide as the vocabulary at every call."""
+    out = sp.csr_matrix(
+        (weights.data.copy(), number[weights.indices], weights.indptr.copy()), shape=weights.shape
+    )
+    out.eliminate_zeros()
+    out.sum_duplicates()
+    return out
 
 
 @dataclass(frozen=True)
@@ -632,7 +646,8 @@ class Postings:
     ``matrix`` holds one row per term renumbered by ``order`` (:func:`term_order`), rows sorted;
     ``dense_slot`` and ``dense`` are its dense rows (:func:`dense_rows`);
     ``impact_rows``/``impact_weights`` the same postings by weight falling within each term
-    (:func:`impact_order`).
+    (:func:`impact_order`); ``number[t]`` is term t's new number (``order`` inverted) and
+    ``least`` the least weight (0.0 when there is none), both kept for the calls that follow.
     """
 
     order: np.ndarray
@@ -641,6 +656,8 @@ class Postings:
     dense: np.ndarray
     impact_rows: np.ndarray
     impact_weights: np.ndarray
+    number: np.ndarray
+    least: float
 
 
 def _by_weight_py(
@@ -700,7 +717,10 @@ def _made_ready(matrix: sp.csr_matrix, order: np.ndarray | None = None) -> Posti
     by_rows, by_weights = impact_order(matrix)
     if order is None:
         order = np.arange(matrix.shape[0])
-    return Postings(order, matrix, slot, rows, by_rows, by_weights)
+    number = np.empty(order.size, np.int64)
+    number[order] = np.arange(order.size)
+    least = float(matrix.data.min()) if matrix.nnz else 0.0
+    return Postings(order, matrix, slot, rows, by_rows, by_weights, number, least)
 
 
 def prepare_postings(postings: sp.csr_matrix) -> Postings:
@@ -738,10 +758,8 @@ def top_k_scores(
     (the propose stage re-scores in rounds) do not renumber it each time.
     """
     ready = postings if isinstance(postings, Postings) else prepare_postings(postings)
-    weights = sp.csr_matrix(weights)[:, ready.order]
-    weights.eliminate_zeros()
-    weights.sort_indices()
+    weights = renumbered(sp.csr_matrix(weights), ready.number)
     compiled = HAVE_NUMBA if use_compiled is None else use_compiled
-    if compiled and _products_stay_normal(weights, ready.matrix):
+    if compiled and _products_stay_normal(weights, ready.least):
         return top_k_compiled(weights, ready, k, chunk or QUERY_CHUNK, counts, floor)
     return top_k_numpy(weights, ready.matrix, k, chunk or 20_000, floor)

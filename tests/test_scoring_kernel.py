@@ -375,3 +375,37 @@ def test_query_terms_are_each_querys_distinct_terms_in_first_seen_order() -> Non
     want["term_id"] = index.terms.get_indexer(want["term"])
     assert (want["count"] > 1).any() and (want["term_id"] < 0).any()  # repeats, unknown terms
     pd.testing.assert_frame_equal(got, want, check_dtype=False)
+
+
+@pytest.mark.parametrize("seed", [0, 1, 2])
+def test_renumbered_equals_scipys_column_indexing(seed: int) -> None:
+    # Reference: scipy's own fancy column indexing (weights[:, order]), which sums duplicate
+    # entries; the input here has duplicates, explicit zeros and unsorted columns.
+    rng = np.random.default_rng(seed)
+    n_q, n_t, nnz = 50, 300, 400
+    rows = np.sort(rng.integers(0, n_q, nnz))
+    cols = rng.integers(0, n_t, nnz)
+    vals = np.where(rng.random(nnz) < 0.1, 0.0, rng.random(nnz))
+    indptr = np.r_[0, np.cumsum(np.bincount(rows, minlength=n_q))]
+    weights = sp.csr_matrix((vals, cols, indptr), shape=(n_q, n_t))
+    assert not weights.has_canonical_format
+    order = rng.permutation(n_t)
+    number = np.empty(n_t, np.int64)
+    number[order] = np.arange(n_t)
+    before = weights.data.copy()
+    got = scoring_kernel.renumbered(weights, number)
+    want = weights[:, order]
+    want.eliminate_zeros()
+    want.sum_duplicates()
+    assert got.has_canonical_format
+    np.testing.assert_array_equal(got.indptr, want.indptr)
+    np.testing.assert_array_equal(got.indices, want.indices)
+    np.testing.assert_allclose(got.data, want.data, rtol=0, atol=1e-15)
+    np.testing.assert_array_equal(weights.data, before)  # the input is left as it was
+
+
+def test_prepared_postings_keep_the_inverse_order_and_least_weight() -> None:
+    q, d = zipf_problem(3, n_q=20)
+    ready = scoring_kernel.prepare_postings(d.T.tocsr())
+    np.testing.assert_array_equal(ready.number[ready.order], np.arange(ready.order.size))
+    assert ready.least == d.data[d.data > 0].min()
