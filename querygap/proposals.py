@@ -81,6 +81,7 @@ from querygap.proposal_candidates import (
 )
 from querygap.proposal_settings import ProposalSettings
 from querygap.rescoring import (
+    affected_rows,
     measure,
     rescued_unless_beaten,
     rewrite,
@@ -195,7 +196,8 @@ def measure_what_counts(
     the content-gap topics and their queries (:func:`querygap.gap_topics.gap_topics`).
     """
     n = failing["searches"].to_numpy()
-    counts = volume(sequences, cands, n)
+    pairs = affected_rows(sequences, cands)  # found once, for the counts and every round
+    counts = volume(sequences, cands, n, pairs)
     cands = cands.assign(
         searches=counts["searches"].to_numpy(), queries=counts["queries"].to_numpy(), rescued=0
     )
@@ -226,6 +228,7 @@ def measure_what_counts(
             thresholds["min_score"],
             thresholds["min_coverage"],
             can_matter,
+            pairs=pairs,
         )
         cands.loc[mask, "rescued"] = found.to_numpy()
         measured[mask] = True

@@ -18,6 +18,7 @@ with stemming it does not stem the stems a second time.
 from __future__ import annotations
 
 from collections.abc import Callable
+from dataclasses import dataclass
 
 import numpy as np
 import pandas as pd
@@ -49,18 +50,24 @@ def sequences_of(queries: pd.Series, index: Index) -> pd.DataFrame:
 
 
 def _with_codes(sequences: pd.DataFrame) -> pd.DataFrame:
-    """``sequences`` with ``next`` (the following term of the same query, ``""`` at the end),
-    ``term_code``/``next_code``: positions in ``attrs["words"]``, the distinct terms after
-    ``""`` (code 0, the empty word), and ``repeats``: True on every term of a query that holds
-    some term more than once."""
+    """``sequences`` with ``term_code``/``next_code``: positions in ``attrs["words"]``, the
+    distinct terms after ``""`` (code 0, the empty word) in order of first occurrence, of the
+    term and of the following term of the same query (0 at the end), and ``repeats``: True on
+    every term of a query that holds some term more than once. One factorization of the terms
+    (a hash pass over the strings); the following term's code is then a shift of integers."""
     seq = sequences[["row", "pos", "term"]].reset_index(drop=True)
     seq["term"] = seq["term"].astype(object)  # an empty frame may come back float-typed
-    seq["next"] = seq["term"].shift(-1).where(seq["row"].eq(seq["row"].shift(-1)), "")
-    words = pd.Index(pd.unique(np.concatenate([[""], seq["term"].to_numpy(object)]).astype(object)))
-    seq["term_code"] = words.get_indexer(seq["term"].to_numpy(object))
-    seq["next_code"] = words.get_indexer(seq["next"].to_numpy(object))
+    codes, uniques = pd.factorize(np.concatenate([[""], seq["term"].to_numpy(object)]))
+    words = pd.Index(np.asarray(uniques, dtype=object), dtype=object)
+    term_code = codes[1:].astype(np.int64)
     rows = seq["row"].to_numpy(np.int64)
-    key = np.sort(rows * len(words) + seq["term_code"].to_numpy(np.int64))
+    same_query = np.zeros(rows.size, bool)
+    same_query[:-1] = rows[1:] == rows[:-1]
+    next_code = np.zeros(rows.size, np.int64)
+    next_code[:-1] = term_code[1:]
+    seq["term_code"] = term_code
+    seq["next_code"] = np.where(same_query, next_code, 0)
+    key = np.sort(rows * len(words) + term_code)
     again = key[1:][key[1:] == key[:-1]] // len(words)
     seq["repeats"] = np.isin(rows, again)
     seq.attrs["words"] = words
@@ -171,12 +178,18 @@ def _rewritten(seq: pd.DataFrame, cand: pd.DataFrame, pairs: pd.DataFrame) -> pd
     )
 
 
-def volume(sequences: pd.DataFrame, candidates: pd.DataFrame, searches: np.ndarray) -> pd.DataFrame:
+def volume(
+    sequences: pd.DataFrame,
+    candidates: pd.DataFrame,
+    searches: np.ndarray,
+    pairs: pd.DataFrame | None = None,
+) -> pd.DataFrame:
     """Searches and queries each candidate touches (no scoring), indexed by ``cand``.
 
-    ``searches[row]`` is the searches of failing query ``row``.
+    ``searches[row]`` is the searches of failing query ``row``; ``pairs``, when given, is
+    :func:`affected_rows` of the same sequences and candidates, made once for several uses.
     """
-    pairs = affected_rows(sequences, candidates)
+    pairs = affected_rows(sequences, candidates) if pairs is None else pairs[["cand", "row"]]
     pairs["searches"] = np.asarray(searches)[pairs["row"].to_numpy()]
     agg = pairs.groupby("cand").agg(searches=("searches", "sum"), queries=("row", "size"))
     return agg.reindex(candidates["cand"].to_numpy(), fill_value=0).astype(np.int64)
@@ -227,6 +240,47 @@ def _suggestion_codes(
     return np.r_[0, np.cumsum(sizes)], codes, term_of
 
 
+@dataclass(frozen=True)
+class RewriteCodes:
+    """The arrays every wave of :func:`ok_rewrites` reads, made once per sequences, candidates
+    and index (:func:`rewrite_codes`): the suggestions as codes (:func:`_suggestion_codes`),
+    the candidates' word codes, and each query's terms as codes with its start and length."""
+
+    sugg_ptr: np.ndarray
+    sugg_codes: np.ndarray
+    term_of: np.ndarray
+    cand_ids: np.ndarray
+    first: np.ndarray
+    second: np.ndarray
+    term_code: np.ndarray
+    next_code: np.ndarray
+    start: np.ndarray
+    length: np.ndarray
+
+
+def rewrite_codes(seq: pd.DataFrame, cand: pd.DataFrame, index: Index) -> RewriteCodes:
+    """The :class:`RewriteCodes` of ``seq`` and ``cand`` as made by :func:`_prepared`."""
+    sugg_ptr, sugg_codes, term_of = _suggestion_codes(cand, seq, index)
+    if "length" not in seq.attrs:  # each query's number of terms, counted once per sequences
+        seq_row = seq["row"].to_numpy(np.int64)
+        seq.attrs["length"] = np.bincount(
+            seq_row, minlength=int(seq_row.max()) + 1 if seq_row.size else 0
+        )
+    length = seq.attrs["length"]
+    return RewriteCodes(
+        sugg_ptr,
+        sugg_codes,
+        term_of,
+        cand["cand"].to_numpy(),
+        cand["first_code"].to_numpy(np.int64),
+        cand["second_code"].to_numpy(np.int64),
+        seq["term_code"].to_numpy(np.int64),
+        seq["next_code"].to_numpy(np.int64),
+        np.cumsum(length) - length,
+        length,
+    )
+
+
 def ok_rewrites(
     seq: pd.DataFrame,
     cand: pd.DataFrame,
@@ -234,33 +288,33 @@ def ok_rewrites(
     index: Index,
     min_score: float,
     min_coverage: float,
+    codes: RewriteCodes | None = None,
 ) -> np.ndarray:
     """Whether each (cand, row) of ``pairs`` is ok once rewritten (see :func:`rewrite`).
 
     ``seq`` and ``cand`` as made by :func:`_prepared`. The rewritten query of pair p is, in
     word codes: the terms of query ``row`` with each occurrence of the candidate's term (both
     words, adjacent, for a two-word term) replaced by the suggestion's words. Its distinct words
-    are counted and the pairs whose counts are equal share one re-scoring.
+    are counted and the pairs whose counts are equal share one re-scoring. ``codes``, when
+    given, is :func:`rewrite_codes` of the same ``seq``, ``cand`` and ``index``, made once for
+    many calls.
     """
     n_pairs = len(pairs)
     if not n_pairs:
         return np.zeros(0, bool)
-    sugg_ptr, sugg_codes, term_of = _suggestion_codes(cand, seq, index)
-    term_code = seq["term_code"].to_numpy(np.int64)
-    next_code = seq["next_code"].to_numpy(np.int64)
-    seq_row = seq["row"].to_numpy(np.int64)
-    length = np.bincount(seq_row, minlength=int(pairs["row"].max()) + 1)
-    start = np.cumsum(length) - length
+    c = codes or rewrite_codes(seq, cand, index)
+    sugg_ptr, sugg_codes, term_of = c.sugg_ptr, c.sugg_codes, c.term_of
+    term_code, next_code, start, length = c.term_code, c.next_code, c.start, c.length
     row = pairs["row"].to_numpy(np.int64)
-    at_cand = pd.Index(cand["cand"].to_numpy()).get_indexer(pairs["cand"].to_numpy())
+    at_cand = positions(c.cand_ids, pairs["cand"].to_numpy())
     # One entry per (pair, position of its query): the query's terms in order.
     sizes = length[row]
     pair_of = np.repeat(np.arange(n_pairs), sizes)
     offset = _ranks(sizes)
     at = np.repeat(start[row], sizes) + offset
     term, nxt = term_code[at], next_code[at]
-    first = cand["first_code"].to_numpy(np.int64)[at_cand][pair_of]
-    second = cand["second_code"].to_numpy(np.int64)[at_cand][pair_of]
+    first = c.first[at_cand][pair_of]
+    second = c.second[at_cand][pair_of]
     prev = np.where(offset > 0, term_code[at - 1], 0)
     is_first = (term == first) & ((second == 0) | (nxt == second))
     is_second = (second != 0) & (term == second) & (prev == first)
@@ -293,6 +347,21 @@ def ok_rewrites(
         min_coverage,
     )
     return ok[query_of]
+
+
+def positions(ids: np.ndarray, wanted: np.ndarray) -> np.ndarray:
+    """The position of each of ``wanted`` among the distinct ``ids``, -1 where absent: by a
+    lookup table when both are small non-negative integers (candidate ids; a gather, where a
+    hash index of 14M values took 0.1 s a call), else by pandas' hash index."""
+    ids, wanted = np.asarray(ids), np.asarray(wanted)
+    if ids.dtype.kind in "iu" and wanted.dtype.kind in "iu" and ids.size and wanted.size:
+        low = min(int(ids.min()), int(wanted.min()))
+        top = max(int(ids.max()), int(wanted.max())) + 1
+        if low >= 0 and top <= 4 * (ids.size + wanted.size):
+            table = np.full(top, -1, np.int64)
+            table[ids] = np.arange(ids.size)
+            return table[wanted]
+    return pd.Index(ids).get_indexer(wanted)
 
 
 _MIX = (np.uint64(0x9E3779B97F4A7C15), np.uint64(0xC2B2AE3D27D4EB4F))
@@ -368,6 +437,7 @@ def rescued_unless_beaten(
     min_coverage: float,
     can_matter: Callable[[np.ndarray, np.ndarray], np.ndarray],
     first: int = 16,
+    pairs: pd.DataFrame | None = None,
 ) -> tuple[pd.Series, pd.Series]:
     """Rescued searches of each candidate, stopping early for a candidate that cannot matter.
 
@@ -376,32 +446,45 @@ def rescued_unless_beaten(
     rescued so far) and ``found + left`` (``left`` the searches not yet re-scored);
     ``can_matter(cand_positions, found + left)`` says, per candidate, whether so many rescued
     searches could still change a result. A candidate that cannot is left with ``found``, a
-    lower bound; every other one is re-scored to the end, so its figure is exact.
+    lower bound; every other one is re-scored to the end, so its figure is exact. ``pairs``,
+    when given, is :func:`affected_rows` of ``sequences`` and these or more candidates (those of
+    others are dropped), so rounds over parts of one candidate list find the pairs once.
 
     Returns
     -------
     (rescued, exact): both indexed by ``cand``; ``exact`` False where re-scoring stopped early.
     """
     seq, cand = _prepared(sequences, candidates)
-    pairs = _pairs(seq, cand)
-    position = pd.Index(cand["cand"].to_numpy()).get_indexer(pairs["cand"].to_numpy())
-    pairs = pairs.assign(pos=position, n=np.asarray(searches)[pairs["row"].to_numpy()])
-    pairs = pairs.sort_values(["pos", "n", "row"], ascending=[True, False, True], kind="mergesort")
-    rank = pairs.groupby("pos").cumcount().to_numpy()
-    pos_of, n_of = pairs["pos"].to_numpy(), pairs["n"].to_numpy()
+    if pairs is None:
+        pairs = _pairs(seq, cand)
+    cand_ids = cand["cand"].to_numpy()
+    pos_of = positions(cand_ids, pairs["cand"].to_numpy())
+    row_of = pairs["row"].to_numpy(np.int64)
+    if pos_of.size and pos_of.min() < 0:  # pairs of other candidates
+        row_of, pos_of = row_of[pos_of >= 0], pos_of[pos_of >= 0]
+    n_of = np.asarray(searches, np.int64)[row_of]
+    # Each candidate's queries most searched first (then by row): rank 0, 1, ... within it;
+    # then all pairs by rank, so each wave (a range of ranks) is one slice.
+    by = np.lexsort((row_of, -n_of, pos_of))
+    pos_of, row_of, n_of = pos_of[by], row_of[by], n_of[by]
+    rank = _ranks(np.bincount(pos_of, minlength=len(cand)))
+    by = np.argsort(rank, kind="stable")
+    pos_of, row_of, n_of, rank = pos_of[by], row_of[by], n_of[by], rank[by]
     left = np.bincount(pos_of, weights=n_of, minlength=len(cand)).astype(np.int64)
     found = np.zeros(len(cand), np.int64)
     active = np.ones(len(cand), bool)
     lo, hi = 0, first
+    codes = rewrite_codes(seq, cand, index)
     while active.any():
-        wave = (rank >= lo) & (rank < hi) & active[pos_of]
-        if not wave.any():
+        a, b = np.searchsorted(rank, [lo, hi])
+        at = a + np.flatnonzero(active[pos_of[a:b]])
+        if not at.size:
             break
-        part = pairs[wave]
-        ok = ok_rewrites(seq, cand, part, index, min_score, min_coverage)
-        got = np.where(ok, part["n"].to_numpy(), 0)
-        found += np.bincount(part["pos"], weights=got, minlength=len(cand)).astype(np.int64)
-        left -= np.bincount(part["pos"], weights=part["n"], minlength=len(cand)).astype(np.int64)
+        pos, n = pos_of[at], n_of[at]
+        part = pd.DataFrame({"cand": cand_ids[pos], "row": row_of[at]})
+        ok = ok_rewrites(seq, cand, part, index, min_score, min_coverage, codes)
+        found += np.bincount(pos, weights=np.where(ok, n, 0), minlength=len(cand)).astype(np.int64)
+        left -= np.bincount(pos, weights=n, minlength=len(cand)).astype(np.int64)
         still = np.flatnonzero(active & (left > 0))
         active[:] = False
         active[still] = can_matter(still, found[still] + left[still])

@@ -111,6 +111,14 @@ def test_each_rewrite_gets_the_status_of_its_text() -> None:
     )
     np.testing.assert_array_equal(got, want)
     assert 0 < got.sum() < len(got)
+    # In waves, as rescued_unless_beaten calls it: the codes made once, the pairs in parts.
+    codes = rescoring.rewrite_codes(s, c, index)
+    half = len(pairs) // 2
+    waves = [
+        ok_rewrites(s, c, part, index, 0.05, 0.6, codes)
+        for part in (pairs.iloc[half:], pairs.iloc[:half])
+    ]
+    np.testing.assert_array_equal(np.concatenate([waves[1], waves[0]]), want)
 
 
 def test_stemmed_suggestions_are_not_stemmed_again() -> None:
@@ -140,3 +148,37 @@ def test_equal_counts_share_a_query_even_when_hashes_collide(
     for got in (honest, colliding):
         assert got[0] == got[2]
         assert len({got[0], got[1], got[3]}) == 3
+
+
+@pytest.mark.parametrize("seed", [0, 3])
+def test_word_codes_follow_their_plain_definition(seed: int) -> None:
+    # The plain definition, written with pandas: the following term is the next row's term
+    # when it belongs to the same query, else the empty word; codes are positions among the
+    # distinct terms after "" in order of first occurrence; repeats marks queries holding a
+    # term twice.
+    seq, _cands, _searches, _index = random_case(seed)
+    plain = seq[["row", "pos", "term"]].reset_index(drop=True)
+    nxt = plain["term"].shift(-1).where(plain["row"].eq(plain["row"].shift(-1)), "")
+    words = pd.Index(pd.unique(pd.concat([pd.Series([""]), plain["term"]])))
+    np.testing.assert_array_equal(seq.attrs["words"], words)
+    np.testing.assert_array_equal(seq["term_code"], words.get_indexer(plain["term"]))
+    np.testing.assert_array_equal(seq["next_code"], words.get_indexer(nxt))
+    twice = plain.groupby("row")["term"].transform(lambda t: t.duplicated().any())
+    np.testing.assert_array_equal(seq["repeats"], twice.to_numpy(bool))
+    assert seq["repeats"].any() and (seq["next_code"] == 0).any() and (seq["next_code"] > 0).any()
+
+
+@pytest.mark.parametrize(
+    ("ids", "wanted"),
+    [
+        (np.array([10, 3, 7, 0]), np.array([3, 3, 9, 0, 10, 12, 7])),  # lookup table
+        (np.array([5, 10**12]), np.array([10**12, 4, 5])),  # too sparse: hash index
+        (np.array([-2, 4]), np.array([4, -2, 0])),  # negative ids: hash index
+        (np.array(["a", "b"], dtype=object), np.array(["b", "c"], dtype=object)),
+        (np.array([1, 2]), np.array([], dtype=np.int64)),
+    ],
+)
+def test_positions_equal_pandas_get_indexer(ids: np.ndarray, wanted: np.ndarray) -> None:
+    # Reference: pandas' Index.get_indexer (position among distinct ids, -1 when absent).
+    want = pd.Index(ids).get_indexer(wanted)
+    np.testing.assert_array_equal(rescoring.positions(ids, wanted), want)
