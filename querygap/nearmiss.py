@@ -21,6 +21,7 @@ from rapidfuzz.distance import OSA, Indel
 
 from querygap.analyzer import english_stemmer
 from querygap.edit_neighbours import candidate_pairs
+from querygap.rescoring import _with_codes
 from querygap.stats import signed_llr
 
 #: Longest word that still gets no spelling candidate, and the longest that gets only one edit.
@@ -165,20 +166,29 @@ def join_candidates(sequences: pd.DataFrame, vocab: pd.DataFrame) -> pd.DataFram
     Parameters
     ----------
     sequences : DataFrame
-        Columns ``row`` and ``term``, one row per analyzed term in query order.
+        Columns ``row`` and ``term``, one row per analyzed term in query order (with the word
+        codes of :func:`querygap.rescoring.sequences_of` when it made them: each distinct pair
+        of adjacent terms is then joined and looked up once, not once per occurrence).
 
     Returns
     -------
     DataFrame with columns term ('a b'), suggestion ('ab'), how ('join'), df.
     """
-    seq = sequences.reset_index(drop=True)
-    nxt = seq["term"].shift(-1)
-    same_row = seq["row"].eq(seq["row"].shift(-1))
-    joined = (seq["term"] + nxt.fillna("")).where(same_row)
+    ready = "next_code" in sequences.columns and "words" in sequences.attrs
+    if ready:
+        seq = sequences
+    else:
+        seq = _with_codes(sequences.assign(pos=sequences.groupby("row").cumcount()))
+    words = seq.attrs["words"].to_numpy(object)
+    first, second = seq["term_code"].to_numpy(np.int64), seq["next_code"].to_numpy(np.int64)
+    # Each distinct adjacent pair once, in order of first occurrence (code 0: end of query).
+    key = pd.unique(first[second > 0] * len(words) + second[second > 0])
+    a, b = words[key // len(words)], words[key % len(words)]
+    joined = a + b
     known = pd.Index(vocab["term"].to_numpy(object))
-    hit = same_row & (known.get_indexer(joined.fillna("")) >= 0)
+    hit = known.get_indexer(joined) >= 0
     out = pd.DataFrame(
-        {"term": (seq["term"] + " " + nxt)[hit], "suggestion": joined[hit], "how": "join"}
+        {"term": a[hit] + " " + b[hit], "suggestion": joined[hit], "how": "join"}
     ).drop_duplicates()
     df_of = pd.Series(vocab["df"].to_numpy(), index=known)
     out["df"] = df_of.reindex(out["suggestion"]).to_numpy()

@@ -115,3 +115,28 @@ def test_variants_split_stem_and_join() -> None:
     seq = pd.DataFrame({"row": [0, 0, 0, 1], "term": ["wi", "fi", "water", "fi"]})
     joins = join_candidates(seq, vocab)
     assert joins[["term", "suggestion"]].values.tolist() == [["wi fi", "wifi"]]
+
+
+@pytest.mark.parametrize("seed", [0, 1])
+def test_joins_equal_their_plain_definition(seed: int) -> None:
+    # The plain definition, written with pandas: every adjacent pair of terms of one query
+    # whose concatenation is a content term, distinct, in order of first occurrence.
+    rng = np.random.default_rng(seed)
+    parts = np.array(["wi", "fi", "smart", "meter", "water", "bill", "pay"], dtype=object)
+    vocab = pd.DataFrame(
+        {"term": ["wifi", "smartmeter", "waterbill", "paybill"], "df": [2, 5, 7, 1]}
+    )
+    queries = pd.Series([" ".join(rng.choice(parts, rng.integers(1, 5))) for _ in range(300)])
+    seq = queries.str.split(" ").explode().rename("term").rename_axis("row").reset_index()
+    seq = seq.astype({"term": object})
+    nxt = seq["term"].shift(-1)
+    same = seq["row"].eq(seq["row"].shift(-1))
+    joined = (seq["term"] + nxt.fillna("")).where(same)
+    hit = same & joined.isin(vocab["term"])
+    want = pd.DataFrame(
+        {"term": (seq["term"] + " " + nxt)[hit], "suggestion": joined[hit], "how": "join"}
+    ).drop_duplicates()
+    want["df"] = want["suggestion"].map(vocab.set_index("term")["df"])
+    got = join_candidates(seq, vocab)
+    assert len(want) >= 3
+    np.testing.assert_array_equal(got.to_numpy(object), want.to_numpy(object))
