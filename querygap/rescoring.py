@@ -261,12 +261,8 @@ class RewriteCodes:
 def rewrite_codes(seq: pd.DataFrame, cand: pd.DataFrame, index: Index) -> RewriteCodes:
     """The :class:`RewriteCodes` of ``seq`` and ``cand`` as made by :func:`_prepared`."""
     sugg_ptr, sugg_codes, term_of = _suggestion_codes(cand, seq, index)
-    if "length" not in seq.attrs:  # each query's number of terms, counted once per sequences
-        seq_row = seq["row"].to_numpy(np.int64)
-        seq.attrs["length"] = np.bincount(
-            seq_row, minlength=int(seq_row.max()) + 1 if seq_row.size else 0
-        )
-    length = seq.attrs["length"]
+    seq_row = seq["row"].to_numpy(np.int64)
+    length = np.bincount(seq_row, minlength=int(seq_row.max()) + 1 if seq_row.size else 0)
     return RewriteCodes(
         sugg_ptr,
         sugg_codes,
