@@ -25,6 +25,7 @@ import pandas as pd
 
 from querygap.analyzer import _distinct, _ranks, analyze_series
 from querygap.indexing import Index
+from querygap.lookup import positions
 from querygap.scoring import is_ok, ok_terms, terms_of_counts
 
 
@@ -343,21 +344,6 @@ def ok_rewrites(
         min_coverage,
     )
     return ok[query_of]
-
-
-def positions(ids: np.ndarray, wanted: np.ndarray) -> np.ndarray:
-    """The position of each of ``wanted`` among the distinct ``ids``, -1 where absent: by a
-    lookup table when both are small non-negative integers (candidate ids; a gather, where a
-    hash index of 14M values took 0.1 s a call), else by pandas' hash index."""
-    ids, wanted = np.asarray(ids), np.asarray(wanted)
-    if ids.dtype.kind in "iu" and wanted.dtype.kind in "iu" and ids.size and wanted.size:
-        low = min(int(ids.min()), int(wanted.min()))
-        top = max(int(ids.max()), int(wanted.max())) + 1
-        if low >= 0 and top <= 4 * (ids.size + wanted.size):
-            table = np.full(top, -1, np.int64)
-            table[ids] = np.arange(ids.size)
-            return table[wanted]
-    return pd.Index(ids).get_indexer(wanted)
 
 
 _MIX = (np.uint64(0x9E3779B97F4A7C15), np.uint64(0xC2B2AE3D27D4EB4F))

@@ -25,6 +25,8 @@ from dataclasses import dataclass
 import numba
 import numpy as np
 
+from querygap.lookup import positions
+
 
 @dataclass(frozen=True)
 class Sessions:
@@ -46,9 +48,7 @@ def rows_of(stored: np.ndarray, wanted: np.ndarray) -> np.ndarray:
     if stored.size and stored[0] == 0 and stored[-1] == stored.size - 1:
         if (np.diff(stored) == 1).all():  # a table without deletions, scanned in order
             return wanted.astype(np.int64, copy=False)
-    where = np.full(int(stored.max()) + 1 if stored.size else 0, -1, np.int64)
-    where[stored] = np.arange(stored.size)
-    return where[wanted]
+    return positions(stored, wanted)
 
 
 def in_file_order(
